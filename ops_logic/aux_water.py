@@ -429,6 +429,8 @@ class PumpCurve:
     shutoff_head_m: float | None = None
 
     def __post_init__(self) -> None:
+        object.__setattr__(self, "flows_m3s", tuple(float(v) for v in self.flows_m3s))
+        object.__setattr__(self, "heads_m", tuple(float(v) for v in self.heads_m))
         if self.kind == "table":
             q = np.asarray(self.flows_m3s, dtype=float)
             h = np.asarray(self.heads_m, dtype=float)
