@@ -1,0 +1,253 @@
+"""A fishway as the solver sees it: controls between pools, entrance gates, auxiliary water.
+
+:class:`Ladder` is built from a :class:`~ops_logic.site.Fishway` (SI). Pools are numbered from
+the exit (0) to the entrance pool (N−1); control j discharges into pool j (control 0 is the exit
+control, drawing from the forebay; control j ≥ 1 is baffle j−1); the entrance gates discharge
+from pool N−1 to the tailwater. Auxiliary water joins at its pool and leaves through every control
+below it.
+
+Settings are a flat mapping of names to SI values, the names that ``fishway solve --set``
+accepts and that a recommendation returns: ``exit_crest_m``, ``entrance_<gate>_crest_m``,
+``aux_<id>_opening_pct`` (gravity valves) and ``aux_<id>_pumps`` (pumps running).
+The solver itself is in :mod:`ops_logic.profile`.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+from ops_logic.aux_water import (
+    PumpCurve,
+    conduit_flow,
+    pump_station_flow,
+    valve_loss_coefficient,
+)
+from ops_logic.openings import Opening, OrificeOpening, SlotOpening, WeirOpening
+from ops_logic.site import (
+    AdjustableWeirExit,
+    Fishway,
+    GravityAux,
+    OrificeBaffle,
+    PumpAux,
+    SlotBaffle,
+    WeirBaffle,
+    WeirOrificeBaffle,
+)
+
+if TYPE_CHECKING:
+    from ops_logic.profile import Profile
+    from ops_logic.site import Site
+
+__all__ = ["AuxSource", "Ladder", "SettingError", "SettingSpec"]
+
+
+class SettingError(ValueError):
+    """A setting that is unknown or outside its actuator range."""
+
+
+@dataclass(frozen=True)
+class SettingSpec:
+    """One adjustable setting: its name, unit, range and largest change per adjustment."""
+
+    name: str
+    label: str
+    kind: str  # "level" (m), "opening" (%), "count"
+    low: float
+    high: float
+    rate_limit: float | None
+    actuator: str  # id of the exit, gate or auxiliary source it moves
+
+    @property
+    def unit(self) -> str:
+        return {"level": "m", "opening": "%", "count": "pumps"}[self.kind]
+
+
+@dataclass(frozen=True)
+class AuxSource:
+    """An auxiliary water source of a ladder with its setting name and pool index."""
+
+    spec: GravityAux | PumpAux
+    pool_index: int
+    setting: str
+    curve: PumpCurve | None = None
+
+    @property
+    def id(self) -> str:
+        return self.spec.id
+
+    def flow(self, forebay_m: float, tailwater_m: float, pool_level_m: float, value: float,
+             temperature_c: float) -> tuple[float, float]:
+        """Flow [m³/s] into the pool and its derivative with respect to the pool level."""
+        s = self.spec
+        if isinstance(s, GravityAux):
+            if value <= 0.0:
+                return 0.0, 0.0
+            if s.conduit.intake_invert is not None and forebay_m <= s.conduit.intake_invert:
+                return 0.0, 0.0
+            head = forebay_m - pool_level_m
+            if head <= 0.0:
+                return 0.0, 0.0
+            v = s.valve
+            k_valve = valve_loss_coefficient(
+                value, diameter_m=s.conduit.diameter, characteristic=v.characteristic,
+                rangeability=v.rangeability, cv_full=v.cv, kv_full=v.kv, k_full=v.k_open)
+            q = conduit_flow(head, diameter_m=s.conduit.diameter, length_m=s.conduit.length,
+                             roughness_m=s.conduit.roughness, minor_k=s.conduit.minor_k,
+                             valve_k=k_valve, temperature_c=temperature_c)
+            return q, -q / (2.0 * head)  # Q ∝ √head for a fixed friction factor
+        n = int(round(value))
+        if n <= 0 or self.curve is None:
+            return 0.0, 0.0
+        lift = pool_level_m - tailwater_m
+        if lift >= self.curve.max_head_m:
+            return 0.0, 0.0
+        q = pump_station_flow(self.curve, n, lift, loss_k_s2_m5=s.loss_k)
+        dz = 1e-4
+        q2 = pump_station_flow(self.curve, n, min(lift + dz, self.curve.max_head_m),
+                               loss_k_s2_m5=s.loss_k) if lift + dz < self.curve.max_head_m else 0.0
+        return q, (q2 - q) / dz
+
+
+def _pump_curve(s: PumpAux) -> PumpCurve:
+    if s.curve is not None:
+        return PumpCurve.from_points([(h, q) for h, q in s.curve])
+    assert s.rated_flow is not None and s.rated_head is not None
+    return PumpCurve.from_rated(s.rated_flow, s.rated_head, s.shutoff_head)
+
+
+def _baffle_openings(b: WeirBaffle | WeirOrificeBaffle | SlotBaffle | OrificeBaffle,
+                     floor_above: float, width_above: float) -> tuple[Opening, ...]:
+    if isinstance(b, WeirBaffle):
+        return (WeirOpening(b.crest, b.width, b.crest - floor_above,
+                            max(width_above, b.width), b.cd),)
+    if isinstance(b, SlotBaffle):
+        return (SlotOpening(b.invert, b.slot_width, b.cd),)
+    out: list[Opening] = []
+    if isinstance(b, WeirOrificeBaffle):
+        # each notch contracts in its share of the pool width (an approximation: the
+        # contraction ratio of Kindsvater–Carter is defined for one notch in one channel)
+        channel = width_above / b.weir_count
+        for _ in range(b.weir_count):
+            out.append(WeirOpening(b.crest, b.weir_width, b.crest - floor_above,
+                                   max(channel, b.weir_width), b.weir_cd))
+    for o in b.orifices:
+        out.append(OrificeOpening(o.invert, o.width, o.height, o.cd, o.count))
+    return tuple(out)
+
+
+class Ladder:
+    """The solver's model of one fishway, built from its validated site entry."""
+
+    def __init__(self, fishway: Fishway):
+        self.fishway = fishway
+        self.id = fishway.id
+        pools = fishway.pools
+        self.pool_ids: tuple[str, ...] = tuple(fishway.pool_ids())
+        self.pool_floor_m = tuple(p.floor for p in pools)
+        self.pool_area_m2 = tuple(p.length * p.width for p in pools)
+        self.pool_width_m = tuple(p.width for p in pools)
+        self.control_ids: tuple[str, ...] = (fishway.exit.id or "exit", *fishway.baffle_ids())
+        self.n_pools = len(pools)
+        # controls 1..N-1 are fixed; the exit is fixed unless it is an adjustable weir
+        self._fixed: list[tuple[Opening, ...] | None] = [None] * self.n_pools
+        ex = fishway.exit
+        if not isinstance(ex, AdjustableWeirExit):
+            # a fixed exit draws from the open forebay: deep approach, no side contraction
+            floor = getattr(ex, "crest", ex.pool.floor) - 10.0
+            self._fixed[0] = _baffle_openings(ex, floor, 1e9)
+        for j, b in enumerate(fishway.baffles, start=1):
+            self._fixed[j] = _baffle_openings(b, pools[j - 1].floor, pools[j - 1].width)
+        self.aux: tuple[AuxSource, ...] = tuple(
+            AuxSource(a, fishway.aux_pool_index(a),
+                      f"aux_{a.id}_opening_pct" if isinstance(a, GravityAux) else
+                      f"aux_{a.id}_pumps",
+                      _pump_curve(a) if isinstance(a, PumpAux) else None)
+            for a in fishway.aux)
+        self.settings: dict[str, SettingSpec] = {s.name: s for s in self._setting_specs()}
+
+    # -- settings ---------------------------------------------------------------------------
+    def _setting_specs(self) -> list[SettingSpec]:
+        f, rl = self.fishway, self.fishway.rate_limits
+        out = []
+        if isinstance(f.exit, AdjustableWeirExit):
+            out.append(SettingSpec("exit_crest_m", "Exit weir crest", "level",
+                                   *f.exit.crest_range, rl.exit_crest, f.exit.id))
+        for g in f.entrance.gates:
+            out.append(SettingSpec(f"entrance_{g.id}_crest_m", f"Entrance weir {g.id} crest",
+                                   "level", *g.crest_range, rl.entrance_crest, g.id))
+        for a in self.aux:
+            if isinstance(a.spec, GravityAux):
+                out.append(SettingSpec(a.setting, f"Auxiliary valve {a.id} opening", "opening",
+                                       0.0, 100.0, rl.valve_opening_pct, a.id))
+            else:
+                out.append(SettingSpec(a.setting, f"Pumps running at {a.id}", "count", 0.0,
+                                       float(a.spec.count), rl.pumps, a.id))
+        return out
+
+    def default_settings(self) -> dict[str, float]:
+        """Mid-range crests, gravity valves half open, no pumps: a neutral starting point."""
+        out = {}
+        for s in self.settings.values():
+            out[s.name] = 0.0 if s.kind == "count" else (
+                50.0 if s.kind == "opening" else 0.5 * (s.low + s.high))
+        return out
+
+    def check_settings(self, settings: Mapping[str, float] | None) -> dict[str, float]:
+        """Defaults overlaid with ``settings``; unknown names or values out of range raise."""
+        out = self.default_settings()
+        for name, value in (settings or {}).items():
+            spec = self.settings.get(name)
+            if spec is None:
+                raise SettingError(f"unknown setting {name!r} for fishway {self.id!r} "
+                                   f"(settings: {', '.join(self.settings)})")
+            v = float(value)
+            if not math.isfinite(v) or not spec.low - 1e-9 <= v <= spec.high + 1e-9:
+                raise SettingError(f"{name} = {v:g} {spec.unit} is outside its range "
+                                   f"{spec.low:g}–{spec.high:g} {spec.unit}")
+            if spec.kind == "count" and abs(v - round(v)) > 1e-9:
+                raise SettingError(f"{name} must be a whole number of pumps, got {v:g}")
+            out[name] = min(max(v, spec.low), spec.high)
+        return out
+
+    # -- controls for a given set of settings -------------------------------------------------
+    def controls(self, settings: Mapping[str, float]) -> list[tuple[Opening, ...]]:
+        """Openings of every control (exit first) under ``settings`` (already checked)."""
+        out = list(self._fixed)
+        ex = self.fishway.exit
+        if isinstance(ex, AdjustableWeirExit):
+            crest = settings["exit_crest_m"]
+            floor = ex.approach_floor if ex.approach_floor is not None else ex.pool.floor
+            out[0] = (WeirOpening(crest, ex.width, crest - floor, None, ex.cd),)
+        return out  # type: ignore[return-value]
+
+    def gates(self, settings: Mapping[str, float]) -> tuple[Opening, ...]:
+        """Entrance gate openings under ``settings``."""
+        floor, width = self.pool_floor_m[-1], self.pool_width_m[-1]
+        gates = self.fishway.entrance.gates
+        channel = width / len(gates)
+        return tuple(
+            WeirOpening(settings[f"entrance_{g.id}_crest_m"], g.width,
+                        settings[f"entrance_{g.id}_crest_m"] - floor,
+                        max(channel, g.width), g.cd)
+            for g in gates)
+
+    def pool_volume_m3(self, j: int, level_m: float) -> float:
+        return self.pool_area_m2[j] * max(level_m - self.pool_floor_m[j], 0.0)
+
+    # -- solving ------------------------------------------------------------------------------
+    @classmethod
+    def from_site(cls, site: Site, fishway_id: str) -> Ladder:
+        """The ladder of fishway ``fishway_id`` of a loaded site."""
+        return cls(site.fishway(fishway_id))
+
+    def solve(self, forebay: float, tailwater: float, settings: Mapping[str, float] | None = None,
+              *, temperature_c: float = 10.0, warm: Profile | None = None) -> Profile:
+        """Steady water-surface profile at these levels [m] and settings (SI); see
+        :func:`ops_logic.profile.solve_profile`."""
+        from ops_logic.profile import solve_profile
+
+        return solve_profile(self, forebay, tailwater, settings, temperature_c=temperature_c,
+                             warm=warm)

@@ -1,0 +1,22 @@
+"""Suite-wide test settings.
+
+Under CI (``CI=true``) nothing may be skipped silently: a skipped test is turned into a
+failure, so a missing browser or database server shows up as red, not as a quiet skip.
+"""
+from __future__ import annotations
+
+import os
+
+import pytest
+
+IN_CI = os.environ.get("CI", "").lower() in {"1", "true", "yes"}
+
+
+@pytest.hookimpl(hookwrapper=True)
+def pytest_runtest_makereport(item, call):
+    outcome = yield
+    report = outcome.get_result()
+    if IN_CI and report.skipped and not hasattr(report, "wasxfail"):
+        report.outcome = "failed"
+        reason = report.longrepr[-1] if isinstance(report.longrepr, tuple) else report.longrepr
+        report.longrepr = f"skipped under CI, which is not allowed: {reason}"
