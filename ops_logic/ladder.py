@@ -39,6 +39,7 @@ from ops_logic.site import (
 
 if TYPE_CHECKING:
     from ops_logic.profile import Profile
+    from ops_logic.recommend import Recommendation
     from ops_logic.site import Site
 
 __all__ = ["AuxSource", "Ladder", "SettingError", "SettingSpec"]
@@ -251,3 +252,11 @@ class Ladder:
 
         return solve_profile(self, forebay, tailwater, settings, temperature_c=temperature_c,
                              warm=warm)
+
+    def recommend(self, forebay: float, tailwater: float,
+                  current_settings: Mapping[str, float] | None = None, *,
+                  temperature_c: float = 10.0) -> Recommendation:
+        """Advisory settings that best hold the targets; see :mod:`ops_logic.recommend`."""
+        from ops_logic.recommend import recommend
+
+        return recommend(self, forebay, tailwater, current_settings, temperature_c=temperature_c)

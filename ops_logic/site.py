@@ -277,24 +277,38 @@ Aux = Annotated[GravityAux | PumpAux, Field(discriminator="type")]
 
 
 class Band(BaseModel):
-    """A target band [min, max] with an optional target inside it (SI after loading)."""
+    """A target band with an optional target inside it (SI after loading). One side may be
+    left open (for example a pool head drop with a maximum only)."""
 
     model_config = _FROZEN
-    min: float
-    max: float
+    min: float | None = None
+    max: float | None = None
     target: float | None = None
 
     @model_validator(mode="after")
     def _inside(self) -> Band:
-        if not self.min < self.max:
+        if self.min is None and self.max is None:
+            raise ValueError("give min, max or both")
+        if self.min is not None and self.max is not None and not self.min < self.max:
             raise ValueError(f"min must be below max (got {self.min:g} and {self.max:g}, SI)")
-        if self.target is not None and not self.min <= self.target <= self.max:
+        if self.target is not None and not (
+                (self.min is None or self.target >= self.min)
+                and (self.max is None or self.target <= self.max)):
             raise ValueError("target must lie within [min, max]")
+        if self.target is None and (self.min is None or self.max is None):
+            raise ValueError("a one-sided band needs a target")
         return self
 
     @property
     def aim(self) -> float:
-        return self.target if self.target is not None else 0.5 * (self.min + self.max)
+        if self.target is not None:
+            return self.target
+        assert self.min is not None and self.max is not None
+        return 0.5 * (self.min + self.max)
+
+    @property
+    def two_sided(self) -> bool:
+        return self.min is not None and self.max is not None
 
 
 def _band(kind: str) -> BeforeValidator:
@@ -323,6 +337,14 @@ class Targets(BaseModel):
     max_power_density: PowerDensity
     max_diffuser_velocity: DiffuserLimits
     min_attraction_flow: Flow
+
+    @model_validator(mode="after")
+    def _two_sided(self) -> Targets:
+        for name in ("entrance_head", "exit_head", "ladder_flow"):
+            band = getattr(self, name)
+            if band is not None and not band.two_sided:
+                _fail(name, "needs both min and max")
+        return self
 
 
 class RateLimits(BaseModel):
