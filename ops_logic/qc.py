@@ -152,10 +152,13 @@ def epoch_seconds(times: ArrayLike) -> np.ndarray:
         return np.asarray(raw, dtype=np.float64)
     if kind == "M":
         raise ValueError("naive timestamps are ambiguous: localise them or pass epoch seconds")
+    items = raw if isinstance(raw, (pd.Series, pd.Index)) else raw.ravel()
     try:
-        index = pd.DatetimeIndex(raw if isinstance(raw, (pd.Series, pd.Index)) else raw.ravel())
-    except (TypeError, ValueError) as err:
-        raise ValueError(f"times must be epoch seconds or tz-aware timestamps: {err}") from err
+        index = pd.DatetimeIndex(items)
+    except (TypeError, ValueError) as err:  # pandas refuses mixed UTC offsets without utc=True
+        if len(items) == 0 or any(getattr(v, "tzinfo", None) is None for v in items):
+            raise ValueError(f"times must be epoch seconds or tz-aware timestamps: {err}") from err
+        index = pd.DatetimeIndex(pd.to_datetime(list(items), utc=True))
     if index.tz is None:
         raise ValueError("naive timestamps are ambiguous: localise them or pass epoch seconds")
     ns = index.as_unit("ns").asi8.astype(np.float64)
@@ -352,7 +355,8 @@ def redundant_pair_test(
     if a.shape != b.shape:
         raise ValueError(f"gauge shapes differ: {a.shape} and {b.shape}")
     suspect, fail = _pair("redundant pair", suspect_difference, fail_difference)
-    diff = np.abs(a - b)
+    with np.errstate(invalid="ignore"):  # inf - inf is NaN: MISSING below
+        diff = np.abs(a - b)
     flags = np.full(a.shape, _P, dtype=np.uint8)
     flags[diff > suspect] = _S
     flags[diff > fail] = _F
@@ -391,7 +395,8 @@ def spike_test(values: ArrayLike, suspect_threshold: float, fail_threshold: floa
     finite = np.isfinite(x)
     flags = np.full(x.shape, _P, dtype=np.uint8)
     if x.size > 2:
-        diff = np.abs(x[1:-1] - (x[:-2] + x[2:]) / 2)
+        with np.errstate(invalid="ignore"):  # non-finite readings are handled below
+            diff = np.abs(x[1:-1] - (x[:-2] + x[2:]) / 2)
         inner = flags[1:-1]
         inner[diff > suspect] = _S
         inner[diff > fail] = _F
@@ -440,7 +445,8 @@ def rate_of_change_test(
     finite = np.isfinite(x)
     flags = np.full(x.shape, _P, dtype=np.uint8)
     if x.size > 1:
-        rate = np.abs(np.diff(x)) / np.diff(t)
+        with np.errstate(invalid="ignore"):  # non-finite readings are handled below
+            rate = np.abs(np.diff(x)) / np.diff(t)
         later = flags[1:]
         later[rate > suspect] = _S
         later[rate > fail] = _F
