@@ -42,24 +42,10 @@ from numpy.typing import ArrayLike
 from pandas.api.indexers import BaseIndexer
 
 __all__ = [
-    "QUANTITIES",
-    "TEST_NAMES",
-    "QcFlag",
-    "QcThresholds",
-    "SeasonalRange",
-    "climatology_test",
-    "default_thresholds",
-    "epoch_seconds",
-    "feed_freshness_flag",
-    "flat_line_test",
-    "gross_range_test",
-    "qc_aggregate",
-    "rate_of_change_test",
-    "redundant_pair_test",
-    "run_qc",
-    "run_qc_tests",
-    "spike_test",
-    "timing_gap_test",
+    "QUANTITIES", "TEST_NAMES", "QcFlag", "QcThresholds", "SeasonalRange", "climatology_test",
+    "default_thresholds", "epoch_seconds", "feed_freshness_flag", "flat_line_test",
+    "gross_range_test", "qc_aggregate", "rate_of_change_test", "redundant_pair_test", "run_qc",
+    "run_qc_tests", "spike_test", "timing_gap_test",
 ]
 
 
@@ -127,12 +113,17 @@ def _series(values: ArrayLike) -> np.ndarray:
 
 
 # ----------------------------------------------------------------------------- times
+_MAX_EPOCH_S = 1e11  # about year 5100: larger numbers are epoch ms/µs/ns passed by mistake
+
+
 def epoch_seconds(times: ArrayLike) -> np.ndarray:
     """Convert times to float epoch seconds (UTC); NaT becomes NaN.
 
     Parameters
     ----------
-    times : epoch seconds [s] or time-zone-aware timestamps. Naive timestamps raise ValueError.
+    times : epoch seconds [s] or time-zone-aware timestamps. Naive timestamps raise
+        ValueError, and so do numbers above 1e11 (epoch ms, µs or ns passed as seconds;
+        pandas 3 ``astype("int64")`` gives µs).
 
     Examples
     --------
@@ -149,7 +140,10 @@ def epoch_seconds(times: ArrayLike) -> np.ndarray:
         raw = np.asarray(times)
         kind, shape = raw.dtype.kind, raw.shape
     if kind in "iuf":
-        return np.asarray(raw, dtype=np.float64)
+        seconds = np.asarray(raw, dtype=np.float64)
+        if np.any(np.abs(seconds[np.isfinite(seconds)]) > _MAX_EPOCH_S):
+            raise ValueError("epoch times beyond year 5000: milli-, micro- or nanoseconds?")
+        return seconds
     if kind == "M":
         raise ValueError("naive timestamps are ambiguous: localise them or pass epoch seconds")
     items = raw if isinstance(raw, (pd.Series, pd.Index)) else raw.ravel()
@@ -196,7 +190,7 @@ def gross_range_test(
     Parameters
     ----------
     values : readings [quantity unit], any shape; NaN is MISSING, ±inf FAILs.
-    fail_span : (low, high) sensor span [quantity unit]; a value on a limit passes.
+    fail_span : (low, high) sensor span [quantity unit]; a value on a limit is inside.
     suspect_span : (low, high) operating span [quantity unit] inside ``fail_span``, optional.
 
     Notes
@@ -475,9 +469,9 @@ def flat_line_test(
 ) -> np.ndarray:
     """Flat-line test: flag a stuck sensor whose readings stay within a tolerance too long.
 
-    With m(n) the last reading at or before t(n) − T: flag n if
-    max(x[m..n]) − min(x[m..n]) < tolerance (missing readings ignored), for T = suspect_seconds
-    (SUSPECT) and T = fail_seconds (FAIL).
+    Over the valid readings, with m(n) the last one at or before t(n) − T: flag n if
+    max(x[m..n]) − min(x[m..n]) < tolerance, for T = suspect_seconds (SUSPECT) and
+    T = fail_seconds (FAIL).
 
     Parameters
     ----------
@@ -495,8 +489,10 @@ def flat_line_test(
     sampling when the thresholds are multiples of the step. Deliberate differences: windows
     are in time, not counts of the median step, so gaps are handled and a threshold that is
     not a multiple of the step means "at least that long" (ioos-qc rounds the count down);
-    readings with less than ``suspect_seconds`` of history are NOT_EVALUATED (ioos-qc: PASS);
-    series of one or two readings are evaluated too (ioos-qc passes them).
+    missing readings are left out, so the first reading after a long dropout is compared with
+    the last one before it (ioos-qc sees a window of one valid reading and calls it flat);
+    readings with less than ``suspect_seconds`` of valid history are NOT_EVALUATED (ioos-qc:
+    PASS); series of one or two readings are evaluated too (ioos-qc passes them).
 
     Examples
     --------
@@ -510,18 +506,18 @@ def flat_line_test(
     tol = _positive("flat line tolerance", tolerance)
     suspect, fail = _pair("flat line", suspect_seconds, fail_seconds)
     finite = np.isfinite(x)
-    series = pd.Series(np.where(finite, x, np.nan))
-    end = np.arange(1, x.size + 1, dtype=np.int64)
-    flags = np.full(x.shape, _P, dtype=np.uint8)
+    tv, series = t[finite], pd.Series(x[finite])  # missing readings are left out entirely
+    end = np.arange(1, tv.size + 1, dtype=np.int64)
+    valid = np.full(tv.shape, _P, dtype=np.uint8)
     for seconds, flag in ((suspect, _S), (fail, _F)):
-        anchor = np.searchsorted(t, t - seconds, side="right") - 1
-        start = np.maximum(anchor, 0).astype(np.int64)
-        rolling = series.rolling(_Windows(start, end), min_periods=1)
+        anchor = np.searchsorted(tv, tv - seconds, side="right") - 1
+        rolling = series.rolling(_Windows(np.maximum(anchor, 0), end), min_periods=1)
         spread = rolling.max().to_numpy() - rolling.min().to_numpy()
-        flags[(anchor >= 0) & (spread < tol)] = flag
+        valid[(anchor >= 0) & (spread < tol)] = flag
         if flag == _S:
-            flags[anchor < 0] = _N
-    flags[~finite] = _M
+            valid[anchor < 0] = _N
+    flags = np.full(x.shape, _M, dtype=np.uint8)
+    flags[finite] = valid
     return flags
 
 

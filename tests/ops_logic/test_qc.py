@@ -92,6 +92,15 @@ def test_epoch_seconds_refuses_naive(naive):
         qc.epoch_seconds(naive)
 
 
+@pytest.mark.parametrize("scale", [1e3, 1e6, 1e9])
+def test_epoch_seconds_refuses_other_units(scale):
+    # PLATFORM_NOTES: pandas 3 astype("int64") of timestamps gives µs, not s or ns
+    with pytest.raises(ValueError, match="nanoseconds"):
+        qc.epoch_seconds(np.array([T0, T0 + 10]) * scale)
+    with pytest.raises(ValueError, match="nanoseconds"):
+        qc.rate_of_change_test(np.array([T0, T0 + 10]) * scale, [1.0, 1.0], 0.1)
+
+
 # ----------------------------------------------------------------------------- gross range
 @st.composite
 def spans(draw):
@@ -338,12 +347,9 @@ def test_rate_of_change_accepts_aware_times():
 
 # ----------------------------------------------------------------------------- flat line
 def stuck_series(rng: np.random.Generator, n: int) -> np.ndarray:
-    """Runs of repeated integers (a stuck-prone sensor) with some missing readings."""
+    """Runs of repeated integers: a stuck-prone sensor (no missing readings: see below)."""
     lengths = rng.integers(1, 12, n)
-    x = np.repeat(rng.integers(0, 3, n).astype(float), lengths)[:n]
-    x[rng.random(n) < 0.05] = np.nan
-    x[rng.random(n) < 0.01] = np.inf
-    return x
+    return np.repeat(rng.integers(0, 3, n).astype(float), lengths)[:n]
 
 
 @pytest.mark.parametrize("seed", range(12))
@@ -407,6 +413,30 @@ def test_flat_line_across_a_gap_and_missing():
     t = T0 + np.array([0.0, 10, 20, 30, 1000, 1010])
     x = np.array([5.0, 5.0, np.nan, 5.0, 5.0, 6.0])
     assert qc.flat_line_test(t, x, 0.1, 30, 60).tolist() == [N, N, M, S, F, P]
+
+
+def test_flat_line_first_reading_after_a_dropout():
+    # deliberate difference: ioos-qc's window of 4 positions holds one valid reading, which
+    # it calls flat (FAIL); here the reading is compared with the last valid one 70 s earlier
+    t, x = regular(10), np.r_[1.0, 2.0, 3.0, np.full(6, np.nan), 7.0]
+    assert ref(iq.flat_line_test(x, as_dt64(t), 30, 60, 0.1))[-1] == F
+    assert qc.flat_line_test(t, x, 0.1, 30, 60).tolist() == [N, N, N, P] + [M] * 6 + [P]
+    x[-1] = 3.0  # the value held across the dropout: flat for 70 s
+    assert qc.flat_line_test(t, x, 0.1, 30, 60)[-1] == F
+
+
+@pytest.mark.parametrize("seed", range(5))
+def test_flat_line_missing_readings_are_left_out(seed):
+    # property of the documented rule: flags of the valid readings do not depend on the
+    # missing ones (no external reference; guards the mapping back to full length)
+    rng = np.random.default_rng(seed)
+    x = stuck_series(rng, 300)
+    t = regular(x.size)
+    x[rng.random(x.size) < 0.1] = rng.choice([np.nan, np.inf, -np.inf])
+    ok = np.isfinite(x)
+    flags = qc.flat_line_test(t, x, 0.5, 30, 60)
+    np.testing.assert_array_equal(flags[~ok], M)
+    np.testing.assert_array_equal(flags[ok], qc.flat_line_test(t[ok], x[ok], 0.5, 30, 60))
 
 
 def test_flat_line_short_series():
@@ -658,7 +688,9 @@ def ioos_aggregate(t, x, th):
     ("water_level", 2.0, 0.05), ("temperature", 8.0, 0.4), ("dissolved_oxygen", 9.0, 0.8)])
 def test_run_qc_matches_ioos_aggregate(quantity, level, noise):
     # [QF] aggregate of the QARTOD tests; reference: ioos_qc.qartod tests + qartod_compare.
-    # Where the reading is missing, run_qc says MISSING (documented).
+    # Where the reading is missing, run_qc says MISSING (documented). The scattered single
+    # NaNs could, by the documented flat-line difference, shift a window by one reading;
+    # with this seed they do not.
     rng = np.random.default_rng(11)
     n = 4000
     t = T0 - 3600 + 10.0 * np.arange(n)  # crosses 1 March: two seasonal ranges
