@@ -646,6 +646,20 @@ _CONFIG_FIELDS: dict[str, dict[str, str]] = {
 }
 
 
+_NUMBER_FIELDS = ("spike_suspect", "spike_fail", "rate_suspect_per_s", "rate_fail_per_s",
+                  "flat_tolerance", "flat_suspect_s", "flat_fail_s", "max_age_s", "max_future_s")
+
+
+def _seasonal(item: SeasonalRange | Mapping[str, Any]) -> SeasonalRange:
+    if isinstance(item, SeasonalRange):
+        return item
+    known = ("first_month", "last_month", "suspect_span", "fail_span")
+    for key in item:
+        if key not in known:
+            raise _unknown("seasonal range field", key, known)
+    return SeasonalRange(**item)
+
+
 @dataclass(frozen=True)
 class QcThresholds:
     """Thresholds of every QARTOD test for one quantity (values in ``unit``, times in s).
@@ -680,12 +694,12 @@ class QcThresholds:
             suspect = _span("suspect_span", self.suspect_span)
             _inside(self.quantity, suspect, fail)
             object.__setattr__(self, "suspect_span", suspect)
-        ranges = tuple(
-            r if isinstance(r, SeasonalRange) else SeasonalRange(**r)
-            for r in self.seasonal_ranges
-        )
+        ranges = tuple(_seasonal(r) for r in self.seasonal_ranges)
         _month_table(ranges)
         object.__setattr__(self, "seasonal_ranges", ranges)
+        for name in _NUMBER_FIELDS:
+            if getattr(self, name) is not None:
+                object.__setattr__(self, name, float(getattr(self, name)))
         groups = {
             "spike": ("spike_suspect", "spike_fail"),
             "flat_line": ("flat_tolerance", "flat_suspect_s", "flat_fail_s"),
@@ -754,10 +768,12 @@ class QcThresholds:
 def default_thresholds(quantity: str) -> QcThresholds:
     """Default thresholds for "water_level" [m], "temperature" [°C] or "dissolved_oxygen" [mg/L].
 
-    Sampling is assumed every ~10 s. The QARTOD manuals leave the numbers to the operator, so
-    each value below is "common practice" with its reason beside it; replace them with the
-    site's sensor specifications and record. Lower suspect limits sit below the alarm criteria
-    (DO 4.0 mg/L, temperature 21-22 °C) so that real events are alarmed, not discarded.
+    Sampling is assumed every ~10 s. No value is taken from a QARTOD manual (they leave the
+    numbers to the operator; from memory): each is "common practice" with its reason beside
+    it; replace them with the site's sensor specifications and record. FAIL limits lie well
+    outside the alarm criteria (DO 1-day minimum 4.0 mg/L, US EPA 1986; migration blocking
+    near 21-22 °C, McCullough 1999; both from memory), so a real event is alarmed, never
+    discarded as FAIL.
 
     >>> default_thresholds("water_level").enabled_tests[:3]
     ('gross_range', 'spike', 'rate_of_change')
@@ -772,7 +788,7 @@ def default_thresholds(quantity: str) -> QcThresholds:
             rate_suspect_per_s=0.02,  # common practice: 1.2 m/min, far above gate-driven rates
             flat_tolerance=0.0005,  # below a 1 mm resolution: only repeated identical readings
             flat_suspect_s=3600.0,  # common practice: a turbulent pool moves within an hour
-            flat_fail_s=14400.0,  # common practice: 4 h identical, a still forebay aside
+            flat_fail_s=14400.0,  # common practice: 4 h identical (a still forebay: longer)
             max_age_s=60.0,  # common practice: six missed 10 s polls
         )
     if quantity == "temperature":
@@ -782,7 +798,7 @@ def default_thresholds(quantity: str) -> QcThresholds:
             suspect_span=(-0.5, 32.0),  # common practice: liquid fresh water, warmest rivers
             seasonal_ranges=(  # invented demo scenario (temperate river): use the site record
                 SeasonalRange(12, 2, (-0.5, 12.0)),
-                SeasonalRange(3, 5, (-0.5, 20.0)),
+                SeasonalRange(3, 5, (-0.5, 24.0)),
                 SeasonalRange(6, 8, (4.0, 30.0)),
                 SeasonalRange(9, 11, (-0.5, 24.0)),
             ),
@@ -867,6 +883,11 @@ def run_qc(
 
     Parameters are those of :func:`run_qc_tests`. A missing (NaN) reading is MISSING whatever
     the timing test says (the plain QARTOD aggregate would let its PASS win).
+
+    For a live feed, run it over a trailing window (at least ``flat_fail_s`` long) without
+    ``now``, then combine the new readings' flags with :func:`timing_gap_test` on those
+    readings only; the newest reading is NOT_EVALUATED by the spike test until the next one
+    arrives, so re-flag the previous reading on each run.
 
     Examples
     --------

@@ -646,6 +646,7 @@ def test_thresholds_from_mapping():
     th = qc.QcThresholds.from_mapping("level", "m", config)
     assert th.enabled_tests == qc.TEST_NAMES
     assert th.suspect_span == (1.0, 9.0)
+    assert isinstance(th.max_age_s, float) and isinstance(th.flat_suspect_s, float)
     assert th.seasonal_ranges[0].months == (11, 12, 1, 2, 3)
 
 
@@ -656,6 +657,9 @@ def test_thresholds_from_mapping():
      "did you mean 'tolerance'"),
     ({"gross_range_test": {"fail_span": [0, 1]}}, "unknown QC test"),
     ({"spike": {"suspect": 1, "fail": 2}}, "fail_span"),
+    ({"gross_range": {"fail_span": [0, 1]}, "climatology": {"seasonal_ranges": [
+        {"first_month": 1, "last_month": 2, "suspect_spam": [0, 1]}]}},
+     "did you mean 'suspect_span'"),
 ])
 def test_thresholds_from_mapping_typos_raise(config, match):
     with pytest.raises(ValueError, match=match):
