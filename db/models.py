@@ -132,7 +132,7 @@ class Tag(Base):
 class Reading(Base):
     __tablename__ = "readings"
     __table_args__ = (
-        sa.CheckConstraint(_in("flag", QARTOD_FLAGS), name="flag_qartod"),
+        sa.CheckConstraint("flag BETWEEN 1 AND 4 OR flag = 9", name="flag_qartod"),
         {"sqlite_with_rowid": False, "postgresql_partition_by": "RANGE (ts_ms)"},
     )
     tag_id: Mapped[int] = mapped_column(sa.ForeignKey("tags.id"), primary_key=True)
