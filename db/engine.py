@@ -53,6 +53,8 @@ DATABASE_URL_ENV = "FISHWAY_DATABASE_URL"
 DATA_DIR_ENV = "FISHWAY_DATA_DIR"
 SQLITE_FILE_NAME = "fishway.sqlite"
 SQLITE_BUSY_TIMEOUT_S = 30.0
+SQLITE_CACHE_KIB = 65536  # page cache per connection (64 MiB)
+SQLITE_WAL_AUTOCHECKPOINT_PAGES = 10000  # checkpoint the WAL every ~40 MB, not every 4 MB
 
 
 def default_data_dir() -> Path:
@@ -86,6 +88,8 @@ def _install_sqlite_settings(engine: Engine) -> None:
             cur.execute("PRAGMA synchronous=NORMAL")
             cur.execute("PRAGMA foreign_keys=ON")
             cur.execute(f"PRAGMA busy_timeout={int(SQLITE_BUSY_TIMEOUT_S * 1000)}")
+            cur.execute(f"PRAGMA cache_size=-{SQLITE_CACHE_KIB}")
+            cur.execute(f"PRAGMA wal_autocheckpoint={SQLITE_WAL_AUTOCHECKPOINT_PAGES}")
         finally:
             cur.close()
 
