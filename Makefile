@@ -18,7 +18,7 @@ demo: $(STAMP)
 	$(BIN)/fishway demo
 
 test: $(STAMP)
-	$(BIN)/python -m pytest
+	$(BIN)/python -m pytest -q
 
 bench: $(STAMP)
 	@for f in tests/bench/bench_*.py; do echo "== $$f"; $(BIN)/python $$f || exit 1; done

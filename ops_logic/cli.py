@@ -446,4 +446,4 @@ def register(subparsers: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--kinds", metavar="K,...", help="fit only these kinds (default: all "
                    "present that flow)")
     p.add_argument("--json", action="store_true", help="print SI JSON")
-    p.set_defaults(handler=_calibrate)
+    p.set_defaults(handler=_calibrate, extra_positionals="paths")

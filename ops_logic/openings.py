@@ -35,6 +35,7 @@ __all__ = [
 ]
 
 SQRT_2G = math.sqrt(2.0 * G)
+_KC_MIN_HEAD = KC_LIMITS["min_head_m"]
 _VILLEMONTE_EXP = 0.385
 
 
@@ -85,11 +86,20 @@ class WeirOpening:
         h1 = zu - self.crest_m
         if h1 <= 0.0:
             return 0.0, 0.0, 0.0
-        he = h1 + self._kh
-        ce = self._a + self._b_over_p * h1
-        root = math.sqrt(he)
-        qf = self._c0 * ce * he * root
-        dqf = self._c0 * (self._b_over_p * he * root + 1.5 * ce * root)
+        if h1 >= _KC_MIN_HEAD or self._kh == 0.0:
+            he = h1 + self._kh
+            ce = self._a + self._b_over_p * h1
+            root = math.sqrt(he)
+            qf = self._c0 * ce * he * root
+            dqf = self._c0 * (self._b_over_p * he * root + 1.5 * ce * root)
+        else:
+            # below the method's minimum head the head correction kh would leave a jump at
+            # h = 0: scale the flow at the minimum head by (h/h_min)^1.5 instead (flagged)
+            he = _KC_MIN_HEAD + self._kh
+            q_min = self._c0 * (self._a + self._b_over_p * _KC_MIN_HEAD) * he * math.sqrt(he)
+            t = h1 / _KC_MIN_HEAD
+            qf = q_min * t * math.sqrt(t)
+            dqf = 1.5 * q_min * math.sqrt(t) / _KC_MIN_HEAD
         h2 = zd - self.crest_m
         if h2 <= 0.0:
             return qf, dqf, 0.0
@@ -233,21 +243,19 @@ def upstream_level(openings: tuple[Opening, ...], flow_m3s: float, zd: float,
         return lo, 0.0, 0.0
     z = guess if guess is not None and guess > lo else lo + 0.1
     hi = math.inf
-    for _ in range(100):
+    for _ in range(200):
         q, dqu, dqd = control_flow(openings, z, zd)
         f = q - flow_m3s
+        if abs(f) <= 1e-12 * flow_m3s:
+            return z, dqu, dqd
         if f > 0.0:
             hi = min(hi, z)
         else:
             lo = max(lo, z)
-        if abs(f) <= 1e-12 * flow_m3s:
+        if hi - lo <= 4e-15 * max(abs(z), 1.0) + tol_m * 1e-4:
             return z, dqu, dqd
-        step = -f / dqu if dqu > 0.0 else math.inf
-        z_new = z + step
+        z_new = z - f / dqu if dqu > 0.0 else math.nan
         if not lo < z_new < hi:
             z_new = 0.5 * (lo + hi) if hi < math.inf else z + 1.0
-        if abs(z_new - z) <= tol_m:
-            q, dqu, dqd = control_flow(openings, z_new, zd)
-            return z_new, dqu, dqd
         z = z_new
     raise ArithmeticError(f"no level passes {flow_m3s:g} m³/s over the control above {zd:.3f} m")

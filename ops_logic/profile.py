@@ -21,6 +21,8 @@ from collections.abc import Mapping
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
+from scipy.optimize import brentq
+
 from ops_logic.hydraulics import G, power_density
 from ops_logic.ladder import Ladder
 from ops_logic.openings import (
@@ -229,18 +231,8 @@ def solve_profile(ladder: Ladder, forebay_m: float, tailwater_m: float,
                           temperature_c)[0]
         x = max(x, 1e-3)
     if forebay_m <= min(o.low_m for o in ctrl[0]):
-        # no ladder flow: the entrance passes the auxiliary water alone (fixed point, since
-        # the auxiliary flows depend only weakly on the levels they set)
-        x = 0.0
-        for it in range(1, 100):  # noqa: B007
-            march = _march(ladder, x, forebay_m, tailwater_m, ctrl, gates, aux_by_pool, s,
-                           temperature_c, guess, clip=True)
-            total = sum(march.aux_q)
-            if abs(total - x) <= 1e-12 + 1e-10 * total:
-                break
-            x, guess = total, march.levels
-        return _build(ladder, forebay_m, tailwater_m, s, ctrl, gates, march, x, temperature_c,
-                      True, it)
+        return _rest_state(ladder, forebay_m, tailwater_m, s, ctrl, gates, aux_by_pool,
+                           temperature_c, guess)
     lo, hi = 0.0, math.inf
     march = None
     it = 0
@@ -265,13 +257,45 @@ def solve_profile(ladder: Ladder, forebay_m: float, tailwater_m: float,
             x_new = 0.5 * (lo + hi) if hi < math.inf else 2.0 * x + 1e-3
         x = x_new
     assert march is not None
-    no_flow = abs(march.forebay_needed - forebay_m) > 1e-6 or march.deficit > 0.0
-    if no_flow and march.deficit > 0.0:
-        march = _march(ladder, hi, forebay_m, tailwater_m, ctrl, gates, aux_by_pool, s,
-                       temperature_c, guess)
-        x = hi
+    if march.deficit > 0.0 or abs(march.forebay_needed - forebay_m) > 1e-6:
+        # the iteration closed on the jump where flow over the exit would start: no flow
+        return _rest_state(ladder, forebay_m, tailwater_m, s, ctrl, gates, aux_by_pool,
+                           temperature_c, guess)
     return _build(ladder, forebay_m, tailwater_m, s, ctrl, gates, march, x, temperature_c,
-                  no_flow, it)
+                  False, it)
+
+
+def _rest_state(ladder: Ladder, forebay: float, tailwater: float, s: Mapping[str, float],
+                ctrl: list[tuple[Opening, ...]], gates: tuple[Opening, ...],
+                aux_by_pool: dict[int, list[Any]], temp: float,
+                guess: list[float] | None) -> Profile:
+    """No flow over the exit: the entrance passes the auxiliary water alone (a fixed point,
+    since the auxiliary flows depend only weakly on the levels they set). Pools above the
+    highest auxiliary inlet are at rest: each holds the level the control below it allows,
+    but no higher than water could drain back upstream (over the control above it, or to the
+    forebay)."""
+    calls = [0]
+
+    def excess(x: float) -> float:  # auxiliary inflow at the levels x sets, less x: decreasing
+        calls[0] += 1
+        m = _march(ladder, x, forebay, tailwater, ctrl, gates, aux_by_pool, s, temp, guess,
+                   clip=True)
+        return sum(m.aux_q) - x
+
+    g0 = excess(0.0)
+    x = float(brentq(excess, 0.0, g0, xtol=1e-13, rtol=1e-12)) if g0 > 0.0 else 0.0
+    march = _march(ladder, x, forebay, tailwater, ctrl, gates, aux_by_pool, s, temp, guess,
+                   clip=True)
+    it = calls[0]
+    cap = max(forebay, min(o.low_m for o in ctrl[0]))
+    for j in range(ladder.n_pools):
+        if march.aux_q[j] > 0.0:
+            break
+        march.inflow[j] = 0.0
+        march.levels[j] = min(march.levels[j], cap)
+        if j + 1 < ladder.n_pools:
+            cap = max(min(o.low_m for o in ctrl[j + 1]), march.levels[j])
+    return _build(ladder, forebay, tailwater, s, ctrl, gates, march, x, temp, True, it)
 
 
 # -- results ---------------------------------------------------------------------------------
