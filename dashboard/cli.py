@@ -3,7 +3,9 @@
 Registration: each package that has commands keeps them in its own ``cli.py`` module exposing
 ``register(subparsers, common)``. It adds its sub-parsers with ``subparsers.add_parser(name,
 parents=[common], ...)`` (``common`` carries ``--debug``) and gives each a handler with
-``set_defaults(handler=func)``, where ``func(args) -> int`` returns the exit status. The modules
+``set_defaults(handler=func)``, where ``func(args) -> int`` returns the exit status (a command
+whose positionals may come after its options declares ``set_defaults(extra_positionals=
+"dest")`` and receives the left-over positionals in ``args.dest``). The modules
 are listed in :data:`COMMAND_MODULES` in the order their commands appear in ``--help``; a
 module that does not exist yet (``db.cli``, ``simulator.cli`` today) is skipped, but a module
 that exists and fails to import is an error, not a silent omission. This module registers the
@@ -74,7 +76,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     """Run ``fishway`` with ``argv`` (default ``sys.argv[1:]``); return the exit status."""
     parser = build_parser()
     try:
-        args = parser.parse_args(argv)
+        args, extra = parser.parse_known_args(argv)
+        if extra:
+            # argparse takes a positional in one chunk: ``calibrate SITE --fishway ID OBS.csv``
+            # leaves OBS.csv over; a command that declares ``extra_positionals`` collects it
+            target = getattr(args, "extra_positionals", None)
+            if target is None or any(e.startswith("-") for e in extra):
+                parser.error(f"unrecognized arguments: {' '.join(extra)}")
+            getattr(args, target).extend(extra)
     except SystemExit as exc:  # --help (0) or a usage error (2, message already printed)
         return exc.code if isinstance(exc.code, int) else (0 if exc.code is None else 2)
     prog = f"fishway {args.command}"

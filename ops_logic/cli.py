@@ -28,8 +28,10 @@ from datetime import datetime
 from pathlib import Path
 from typing import Any
 
+from ops_logic.advisory import ADVISORY_CAUTION
 from ops_logic.calibrate import ObservationError, calibrate, read_observations
 from ops_logic.ladder import Ladder, SettingSpec
+from ops_logic.recommend import recommend
 from ops_logic.report_format import (
     format_calibration,
     format_profile,
@@ -264,8 +266,6 @@ def _solve(args: argparse.Namespace) -> int:
 
 
 def _recommend(args: argparse.Namespace) -> int:
-    from ops_logic.recommend import recommend
-
     site, _, _ = _load(args)
     units = site.site.units
     ladder = _ladder(site, args.fishway)
@@ -297,8 +297,6 @@ def _progress_printer(total: int) -> Any:
 
 
 def _table(args: argparse.Namespace) -> int:
-    from ops_logic.advisory import ADVISORY_CAUTION
-
     site, _, path = _load(args)
     units = site.site.units
     ladder = _ladder(site, args.fishway)
@@ -338,8 +336,8 @@ def _table(args: argparse.Namespace) -> int:
 
 def _calibrate(args: argparse.Namespace) -> int:
     if len(args.paths) > 2:
-        raise InputError(f"calibrate: expected [SITE] OBSERVATIONS.csv, got {len(args.paths)} "
-                         "paths")
+        raise InputError(f"expected [SITE] OBSERVATIONS.csv, got {len(args.paths)} paths: "
+                         + " ".join(args.paths))
     args.site = args.paths[0] if len(args.paths) == 2 else None
     site, _, _ = _load(args)
     units = site.site.units

@@ -22,11 +22,12 @@ from collections.abc import Iterable, Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
 from ops_logic.advisory import ADVISORY_CAUTION
+from ops_logic.ladder import Ladder
 from ops_logic.units import UnitSystem, display_unit, from_si
 
 if TYPE_CHECKING:
     from ops_logic.calibrate import CalibrationResult
-    from ops_logic.ladder import Ladder, SettingSpec
+    from ops_logic.ladder import SettingSpec
     from ops_logic.profile import Criterion, Profile
     from ops_logic.recommend import Recommendation
     from ops_logic.site import Site
@@ -126,8 +127,6 @@ def json_text(obj: Any, indent: int | None = None) -> str:
 # -- site ------------------------------------------------------------------------------------
 def format_site(site: Site, source: str) -> str:
     """Summary of a valid site file: the site, then each fishway's pools, baffles, settings."""
-    from ops_logic.ladder import Ladder
-
     system = site.site.units
     out = [f"{source}: valid",
            f"Site: {site.site.name} (units {system}, time zone {site.site.time_zone}, "
