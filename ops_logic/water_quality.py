@@ -12,8 +12,8 @@ References
 .. [APHA4500O] APHA, AWWA, WEF. Standard Methods for the Examination of Water and
    Wastewater, method 4500-O (Oxygen, dissolved), table of oxygen solubility and its
    pressure correction; the same equations underlie the USGS dissolved-oxygen tables.
-.. [USSA1976] NOAA, NASA, USAF (1976). U.S. Standard Atmosphere, 1976. U.S. Government
-   Printing Office, Washington D.C., NOAA-S/T 76-1562.
+.. [USSA1976] U.S. Standard Atmosphere, 1976 (document S/T 76-1562), the joint US
+   government standard atmosphere.
 """
 from __future__ import annotations
 
@@ -255,7 +255,7 @@ def barometric_pressure_kpa(elevation_m):
 
     References
     ----------
-    .. [1] U.S. Standard Atmosphere, 1976 (NOAA-S/T 76-1562), eqs. for the 0-11 km layer;
+    .. [1] U.S. Standard Atmosphere, 1976 (S/T 76-1562), eqs. for the 0-11 km layer;
        see module references.
     """
     z = _as_checked_array(elevation_m, "elevation_m", ELEVATION_MIN_M, ELEVATION_MAX_M, "m")
