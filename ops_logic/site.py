@@ -43,6 +43,8 @@ __all__ = [
     "Fishway",
     "Site",
     "SiteConfigError",
+    "Feed",
+    "Ingest",
     "demo_site_path",
     "load_site",
     "parse_site",
@@ -357,6 +359,15 @@ class RateLimits(BaseModel):
     pumps: int | None = Field(None, ge=1)
 
 
+class Gauging(BaseModel):
+    """Which pools carry a level gauge (default: the first, every tenth and the last) and which
+    carry a second, redundant one (default: the entrance pool)."""
+
+    model_config = _FROZEN
+    pools: list[str] | None = None
+    redundant: list[str] | None = None
+
+
 class Fishway(BaseModel):
     model_config = _FROZEN
     id: Ident
@@ -369,6 +380,7 @@ class Fishway(BaseModel):
     aux: list[Aux] = []
     targets: Targets
     rate_limits: RateLimits = RateLimits()
+    gauging: Gauging = Gauging()
 
     @model_validator(mode="before")
     @classmethod
@@ -404,10 +416,50 @@ class Fishway(BaseModel):
         return len(ids) - 1 if aux.into_pool == "entrance" else ids.index(aux.into_pool)
 
 
+class Feed(BaseModel):
+    """Where readings come from: the in-process simulated plant, an OPC UA server, or a folder
+    of CSV files that loggers drop."""
+
+    model_config = _FROZEN
+    id: Ident = "plant"
+    type: Literal["simulated", "opcua", "csv"] = "simulated"
+    endpoint: str | None = None
+    folder: str | None = None
+    namespace: int = Field(2, ge=0)
+
+    @model_validator(mode="after")
+    def _needs(self) -> Feed:
+        if self.type == "opcua" and not (self.endpoint or "").startswith("opc.tcp://"):
+            raise ValueError("an opcua feed needs endpoint = \"opc.tcp://host:port\"")
+        if self.type == "csv" and not self.folder:
+            raise ValueError("a csv feed needs folder = \"path\"")
+        return self
+
+
+class TagOverride(BaseModel):
+    model_config = _FROZEN
+    name: str
+    address: str | None = None
+    poll_seconds: float | None = Field(None, gt=0)
+    feed: str | None = None
+
+
+class Ingest(BaseModel):
+    """Scheduling of the ingest service; every period in seconds."""
+
+    model_config = _FROZEN
+    poll_seconds: float = Field(10.0, gt=0)
+    recommend_seconds: float = Field(60.0, gt=0)
+    keep_raw_days: float = Field(400.0, gt=0)
+    feeds: list[Feed] = [Feed()]
+    tags: list[TagOverride] = []
+
+
 class Site(BaseModel):
     model_config = _FROZEN
     site: SiteInfo
     fishways: list[Fishway] = Field(min_length=1)
+    ingest: Ingest = Ingest()
 
     @model_validator(mode="after")
     def _unique(self) -> Site:
@@ -482,6 +534,10 @@ def _check_fishway(f: Fishway) -> None:
     for i, g in enumerate(f.entrance.gates):
         if g.crest_range[0] <= last_floor:
             _fail(f"entrance.gates[{i}].crest_range", "must lie above the entrance pool floor")
+    for key in ("pools", "redundant"):
+        for k, pid in enumerate(getattr(f.gauging, key) or []):
+            if pid not in pool_ids:
+                _fail(f"gauging.{key}[{k}]", f"no pool {pid!r} in this fishway")
     ids = [a.id for a in f.aux]
     if len(set(ids)) != len(ids):
         _fail("aux", "auxiliary water ids must be unique")
