@@ -11,6 +11,15 @@ each reading arrived, so trends and reports over old periods stay complete.
   rest in the same batched way as on SQLite.
 
 A scheduled job calls it, e.g. daily. ``keep_days`` must be at least 1.
+
+>>> from datetime import datetime, timezone
+>>> from db.engine import make_engine
+>>> from db.migrate import upgrade
+>>> eng = make_engine("sqlite://"); _ = upgrade(eng)
+>>> prune(eng, datetime(2027, 2, 4, tzinfo=timezone.utc))
+PruneReport(cutoff=datetime.datetime(2025, 12, 31, 0, 0, tzinfo=datetime.timezone.utc), \
+rows_deleted=0, partitions_dropped=())
+>>> eng.dispose()
 """
 from __future__ import annotations
 
