@@ -101,6 +101,9 @@ def main(argv: Sequence[str] | None = None) -> int:
     except SettingError as exc:
         _error(prog, [str(exc)])
         return 2
+    except BrokenPipeError:  # the reader went away (``fishway solve | head``): stop quietly
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return 1
     except KeyboardInterrupt:
         print(f"{prog}: interrupted", file=sys.stderr)
         return 130

@@ -25,27 +25,21 @@ one, and recommend well under 100 ms. The figures are reported as measured, met 
 from __future__ import annotations
 
 import os
+import statistics
+import sys
+import time
+from collections.abc import Callable, Mapping
+from typing import Any
 
-for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS"):
-    os.environ.setdefault(_var, "1")
+import numpy as np
+from scipy.optimize import root
 
-import statistics  # noqa: E402
-import sys  # noqa: E402
-import time  # noqa: E402
-from collections.abc import Callable, Mapping  # noqa: E402
-from pathlib import Path  # noqa: E402
-from typing import Any  # noqa: E402
+from ops_logic.ladder import Ladder
+from ops_logic.openings import control_flow
+from ops_logic.recommend import recommend
+from ops_logic.site import load_site
 
-import numpy as np  # noqa: E402
-from scipy.optimize import root  # noqa: E402
-
-sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
-
-from ops_logic.ladder import Ladder  # noqa: E402
-from ops_logic.openings import control_flow  # noqa: E402
-from ops_logic.recommend import recommend  # noqa: E402
-from ops_logic.site import load_site  # noqa: E402
-
+_ONE_THREAD = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS")
 FT = 0.3048
 PAIRS_FT = [(253.75, 215.5), (255.0, 212.5), (252.5, 218.5), (254.5, 217.0)]
 """(forebay, tailwater) in ft: mid range, high/low, low/high and one in between."""
@@ -211,4 +205,8 @@ def main() -> int:
 
 
 if __name__ == "__main__":
+    if any(os.environ.get(v) != "1" for v in _ONE_THREAD):
+        # numpy's thread pools are sized at import: restart with one thread each
+        os.environ.update(dict.fromkeys(_ONE_THREAD, "1"))
+        os.execv(sys.executable, [sys.executable, *sys.argv])
     sys.exit(main())
