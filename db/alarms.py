@@ -4,7 +4,7 @@ The alarm engine (rules, ISA-18.2 state machine) lives elsewhere and calls
 ``record_alarm_event``; this module stores, it does not decide. Each alarm is known by
 a ``key`` the engine composes (e.g. ``"do_low@3"`` for rule ``do_low`` on fishway 3).
 
-``record_alarm_event(engine, key, ts, kind, state, priority, *, rule, fishway_id=None,
+``record_alarm_event(engine, key, ts, *, kind, state, priority, rule, fishway_id=None,
 tag_id=None, value=None, who=None, why="", message=None, shelved_until=None) -> int``
 appends one event (kind in :data:`db.models.ALARM_EVENT_KINDS`) and brings the alarm's
 current-state row to ``state`` (ANSI/ISA-18.2-2016 states,
@@ -22,8 +22,8 @@ index ``ts`` (UTC), columns key, rule, fishway_id, kind, state, priority, value,
 >>> from db.migrate import upgrade
 >>> eng = make_engine("sqlite://"); _ = upgrade(eng)
 >>> t = datetime(2026, 7, 1, 14, 0, tzinfo=timezone.utc)
->>> _ = record_alarm_event(eng, "do_low@1", t, "raised", "unacknowledged", "high",
-...                        rule="do_low", value=4.6, why="DO below 5.0 mg/L")
+>>> _ = record_alarm_event(eng, "do_low@1", t, kind="raised", state="unacknowledged",
+...                        priority="high", rule="do_low", value=4.6, why="DO below 5.0 mg/L")
 >>> alarms_frame(eng).loc["do_low@1", "state"]
 'unacknowledged'
 >>> eng.dispose()
@@ -44,8 +44,8 @@ from db.types import to_utc
 __all__ = ["alarm_events_frame", "alarms_frame", "record_alarm_event"]
 
 
-def record_alarm_event(engine: Engine, key: str, ts: datetime, kind: str, state: str,
-                       priority: str, *, rule: str, fishway_id: int | None = None,
+def record_alarm_event(engine: Engine, key: str, ts: datetime, *, kind: str, state: str,
+                       priority: str, rule: str, fishway_id: int | None = None,
                        tag_id: int | None = None, value: float | None = None,
                        who: str | None = None, why: str = "", message: str | None = None,
                        shelved_until: datetime | None = None) -> int:

@@ -33,7 +33,7 @@ True
 from __future__ import annotations
 
 import math
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import pandas as pd
 import sqlalchemy as sa
@@ -50,7 +50,7 @@ QUANTITIES = ("water_level", "temperature", "dissolved_oxygen", "position", "flo
 
 
 def _now(now: datetime | None) -> datetime:
-    return now if now is not None else datetime.now(timezone.utc)
+    return now if now is not None else datetime.now(UTC)
 
 
 def _insert(engine: Engine, table: sa.Table, values: dict) -> int:

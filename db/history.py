@@ -52,9 +52,16 @@ from sqlalchemy.engine import Engine
 from db.models import OPERATOR_LOG_KINDS, ActuatorSetting, OperatorLogEntry, Recommendation
 from db.types import to_utc
 
-__all__ = ["ACTUATOR_SOURCES", "actuator_settings_frame", "add_log_entry",
-           "latest_actuator_settings", "operator_log_frame", "record_actuator_setting",
-           "record_recommendation", "recommendations_frame"]
+__all__ = [
+    "ACTUATOR_SOURCES",
+    "actuator_settings_frame",
+    "add_log_entry",
+    "latest_actuator_settings",
+    "operator_log_frame",
+    "recommendations_frame",
+    "record_actuator_setting",
+    "record_recommendation",
+]
 
 #: Where an actuator setting came from.
 ACTUATOR_SOURCES = ("manual", "recommendation", "plc", "simulator", "import")

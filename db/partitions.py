@@ -19,7 +19,7 @@ from __future__ import annotations
 
 import re
 import weakref
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import sqlalchemy as sa
 from sqlalchemy.engine import Engine
@@ -44,8 +44,8 @@ def month_bounds_ms(year: int, month: int) -> tuple[int, int]:
     """Epoch-millisecond bounds ``[start, end)`` of a UTC calendar month."""
     if not 1 <= month <= 12:
         raise ValueError(f"month {month} out of 1..12")
-    start = datetime(year, month, 1, tzinfo=timezone.utc)
-    end = datetime(*_next_month(year, month), 1, tzinfo=timezone.utc)
+    start = datetime(year, month, 1, tzinfo=UTC)
+    end = datetime(*_next_month(year, month), 1, tzinfo=UTC)
     return to_epoch_ms(start), to_epoch_ms(end)
 
 
@@ -109,7 +109,7 @@ def ensure_partitions(engine: Engine, until: datetime, since: datetime | None = 
     """
     if not is_postgresql(engine):
         return []
-    since = since or datetime.now(timezone.utc)
+    since = since or datetime.now(UTC)
     start_ms, end_ms = to_epoch_ms(since), to_epoch_ms(until) + 1
     if end_ms <= start_ms:
         raise ValueError("until must not be before since")

@@ -23,7 +23,8 @@ IMMEDIATE`` (the write lock is taken first, so nothing changes between the inser
 the check for keys already stored). The batch is inserted optimistically with ``ON
 CONFLICT DO NOTHING``; only when fewer rows than sent were new is that undone (a
 savepoint) and the new rows found by a per-tag key look-up and inserted, so a fresh
-batch costs no look-ups and a re-sent one about twice its insert. On PostgreSQL one ``INSERT … SELECT FROM unnest(…) ON CONFLICT
+batch costs no look-ups and a re-sent one about twice its insert. On PostgreSQL one
+``INSERT … SELECT FROM unnest(…) ON CONFLICT
 DO NOTHING RETURNING`` stores the batch and returns exactly the new rows, which keeps
 concurrent writers correct too.
 
@@ -51,6 +52,7 @@ np.float64(101.26)
 """
 from __future__ import annotations
 
+import math
 from collections.abc import Iterable, Sequence
 from datetime import datetime
 from operator import itemgetter
@@ -191,7 +193,7 @@ def _new_mask_sqlite(cur, tag: np.ndarray, ts_ms: np.ndarray) -> np.ndarray:
 def _values_for_db(value: np.ndarray) -> list:
     out = value.tolist()
     if np.isnan(value).any():
-        out = [None if v != v else v for v in out]
+        out = [None if math.isnan(v) else v for v in out]
     return out
 
 

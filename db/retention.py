@@ -46,6 +46,7 @@ class PruneReport:
     partitions_dropped: tuple[str, ...]
 
 
+_TAGS = sa.text("SELECT id FROM tags ORDER BY id")
 _EDGE = sa.text("SELECT ts_ms FROM readings WHERE tag_id = :tag AND ts_ms < :cut "
                 "ORDER BY ts_ms LIMIT 1 OFFSET :skip")
 _DELETE_UPTO = sa.text("DELETE FROM readings WHERE tag_id = :tag AND ts_ms <= :edge")
@@ -75,11 +76,12 @@ def prune(engine: Engine, now: datetime, keep_days: float = DEFAULT_KEEP_DAYS,
     dropped = tuple(drop_partitions_before(engine, cutoff))
     deleted = 0
     with engine.connect() as conn:
-        tag_ids = [int(t) for t in conn.execute(sa.text("SELECT id FROM tags ORDER BY id")).scalars()]
+        tag_ids = [int(t) for t in conn.execute(_TAGS).scalars()]
     for tag in tag_ids:
         while True:
             with engine.begin() as conn:
-                edge = conn.execute(_EDGE, {"tag": tag, "cut": cut_ms, "skip": int(batch) - 1}).scalar()
+                edge = conn.execute(_EDGE, {"tag": tag, "cut": cut_ms,
+                                            "skip": int(batch) - 1}).scalar()
                 if edge is None:
                     deleted += conn.execute(_DELETE_BEFORE, {"tag": tag, "cut": cut_ms}).rowcount
                     break

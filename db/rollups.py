@@ -133,8 +133,10 @@ def upsert_rollups_sql(dialect: str) -> str:
         least, greatest = "LEAST", "GREATEST"
         arrays = ", ".join(f"%s::{t}[]" for t in _PG_ARRAY_TYPES)
         source = f"SELECT * FROM unnest({arrays})"
-    older_min = "(excluded.vmin < r.vmin OR (excluded.vmin = r.vmin AND excluded.vmin_ms < r.vmin_ms))"
-    older_max = "(excluded.vmax > r.vmax OR (excluded.vmax = r.vmax AND excluded.vmax_ms < r.vmax_ms))"
+    older_min = ("(excluded.vmin < r.vmin OR "
+                 "(excluded.vmin = r.vmin AND excluded.vmin_ms < r.vmin_ms))")
+    older_max = ("(excluded.vmax > r.vmax OR "
+                 "(excluded.vmax = r.vmax AND excluded.vmax_ms < r.vmax_ms))")
     return (
         f"INSERT INTO rollups AS r ({', '.join(ROLLUP_COLUMNS)}) {source} "
         "ON CONFLICT (tag_id, res_s, bucket_ms) DO UPDATE SET "
@@ -143,7 +145,8 @@ def upsert_rollups_sql(dialect: str) -> str:
         f"vmin_ms = CASE WHEN {older_min} THEN excluded.vmin_ms ELSE r.vmin_ms END, "
         f"vmax = {greatest}(r.vmax, excluded.vmax), "
         f"vmax_ms = CASE WHEN {older_max} THEN excluded.vmax_ms ELSE r.vmax_ms END, "
-        "vfirst = CASE WHEN excluded.vfirst_ms < r.vfirst_ms THEN excluded.vfirst ELSE r.vfirst END, "
+        "vfirst = CASE WHEN excluded.vfirst_ms < r.vfirst_ms "
+        "THEN excluded.vfirst ELSE r.vfirst END, "
         "vfirst_ms = CASE WHEN excluded.vfirst_ms < r.vfirst_ms "
         "THEN excluded.vfirst_ms ELSE r.vfirst_ms END, "
         "vlast = CASE WHEN excluded.vlast_ms > r.vlast_ms THEN excluded.vlast ELSE r.vlast END, "

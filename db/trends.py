@@ -141,7 +141,7 @@ def _bucket_m4(arr: np.ndarray, column: np.ndarray) -> tuple[np.ndarray, ...]:
     return np.tile(column[starts], 4), ts, value, arr[pick_rows, 8].astype("int64")
 
 
-def _candidates(conn, tag_id: int, res_s: int, start_ms: int, end_ms: int,
+def _candidates(conn, tag_id: int, res_s: int, start_ms: int, end_ms: int, *,
                 width_px: int) -> tuple[np.ndarray, ...]:
     """(column, ts, value, flag) of a superset of the M4 points of the range."""
     span = end_ms - start_ms
@@ -190,7 +190,7 @@ def trend(engine: Engine, tag_id: int, start: datetime | float, end: datetime | 
     res_s = choose_resolution_s(span, width_px)
     with engine.connect() as conn:
         column, ts, value, flag = _candidates(conn, int(tag_id), res_s, start_ms, end_ms,
-                                              int(width_px))
+                                              width_px=int(width_px))
     column = np.minimum(column, width_px - 1)
     order = np.lexsort((ts, column))
     column, ts, value, flag = column[order], ts[order], value[order], flag[order]

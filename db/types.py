@@ -22,7 +22,7 @@ Timestamp('2026-01-01 00:00:00.250000+0000', tz='UTC')
 from __future__ import annotations
 
 import math
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 from numbers import Real
 
 import numpy as np
@@ -44,7 +44,7 @@ def to_utc(when: datetime) -> datetime:
         raise TypeError(f"expected a datetime, got {type(when).__name__}")
     if when.tzinfo is None or when.tzinfo.utcoffset(when) is None:
         raise ValueError(f"naive datetime {when!r}: give a time-zone-aware datetime")
-    return when.astimezone(timezone.utc)
+    return when.astimezone(UTC)
 
 
 def to_epoch_ms(when: datetime | Real) -> int:
@@ -62,7 +62,7 @@ def to_epoch_ms(when: datetime | Real) -> int:
         return int(when.as_unit("ns").value // 1_000_000)
     if isinstance(when, datetime):
         utc = to_utc(when)
-        delta = utc - datetime(1970, 1, 1, tzinfo=timezone.utc)
+        delta = utc - datetime(1970, 1, 1, tzinfo=UTC)
         return (delta.days * 86_400 + delta.seconds) * 1000 + delta.microseconds // 1000
     if isinstance(when, Real | np.integer | np.floating):
         seconds = float(when)
@@ -78,7 +78,7 @@ def ms_to_datetime(ms: int) -> datetime:
     >>> ms_to_datetime(1767225600000).isoformat()
     '2026-01-01T00:00:00+00:00'
     """
-    return datetime.fromtimestamp(int(ms) / 1000.0, tz=timezone.utc)
+    return datetime.fromtimestamp(int(ms) / 1000.0, tz=UTC)
 
 
 def ms_to_index(ms, name: str = "ts") -> pd.DatetimeIndex:
@@ -107,5 +107,5 @@ class UTCDateTime(TypeDecorator):
         if value is None:
             return None
         if value.tzinfo is None:
-            return value.replace(tzinfo=timezone.utc)
-        return value.astimezone(timezone.utc)
+            return value.replace(tzinfo=UTC)
+        return value.astimezone(UTC)

@@ -2,7 +2,7 @@
 
 Usage (e.g. in a session-scoped pytest fixture)::
 
-    server = PgServer.start()          # raises PgUnavailable when the machine has none
+    server = PgServer.start()          # raises PgUnavailableError when the machine has none
     url = server.url("postgres")       # postgresql+psycopg://postgres@127.0.0.1:PORT/postgres
     ...
     server.stop()
@@ -17,6 +17,7 @@ from __future__ import annotations
 import contextlib
 import glob
 import os
+import pwd
 import shutil
 import socket
 import subprocess
@@ -24,10 +25,10 @@ import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 
-__all__ = ["PgServer", "PgUnavailable", "find_pg_bin"]
+__all__ = ["PgServer", "PgUnavailableError", "find_pg_bin"]
 
 
-class PgUnavailable(RuntimeError):
+class PgUnavailableError(RuntimeError):
     """No usable PostgreSQL on this machine (message says why)."""
 
 
@@ -43,7 +44,7 @@ def find_pg_bin() -> Path:
         folder = Path(initdb).parent
         if (folder / "pg_ctl").exists():
             return folder
-    raise PgUnavailable("PostgreSQL server binaries (initdb, pg_ctl) not found; "
+    raise PgUnavailableError("PostgreSQL server binaries (initdb, pg_ctl) not found; "
                         "install the 'postgresql' package")
 
 
@@ -72,22 +73,21 @@ class PgServer:
         proc = subprocess.run(self._cmd(*args), capture_output=True, text=True,
                               timeout=timeout, stdin=subprocess.DEVNULL, check=False)
         if proc.returncode != 0:
-            raise PgUnavailable(f"{' '.join(args[:2])} failed ({proc.returncode}): "
+            raise PgUnavailableError(f"{' '.join(args[:2])} failed ({proc.returncode}): "
                                 f"{proc.stderr.strip() or proc.stdout.strip()}")
 
     @classmethod
     def start(cls) -> PgServer:
-        """initdb + pg_ctl start on a free loopback port; raises PgUnavailable."""
+        """initdb + pg_ctl start on a free loopback port; raises PgUnavailableError."""
         bin_dir = find_pg_bin()
         run_as = None
         if os.geteuid() == 0:
             if shutil.which("runuser") is None:
-                raise PgUnavailable("running as root but 'runuser' is missing")
+                raise PgUnavailableError("running as root but 'runuser' is missing")
             try:
-                import pwd
                 user = pwd.getpwnam("postgres")
             except KeyError as exc:
-                raise PgUnavailable("running as root and there is no 'postgres' user") from exc
+                raise PgUnavailableError("running as root and there is no 'postgres' user") from exc
             run_as = "postgres"
         tmp_root = Path(tempfile.mkdtemp(prefix="fishway-pg-"))
         data_dir = tmp_root / "data"
@@ -115,7 +115,7 @@ class PgServer:
 
     def stop(self) -> None:
         """Fast shutdown and removal of the data folder."""
-        with contextlib.suppress(PgUnavailable, subprocess.TimeoutExpired):
+        with contextlib.suppress(PgUnavailableError, subprocess.TimeoutExpired):
             self._run(str(self.bin_dir / "pg_ctl"), "-D", str(self.data_dir),
                       "-m", "fast", "-w", "stop")
         self._cleanup()

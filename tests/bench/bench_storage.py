@@ -27,11 +27,11 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[2]))
 
-from db.catalog import add_fishway, add_site, add_tag  # noqa: E402
-from db.engine import make_engine  # noqa: E402
-from db.migrate import upgrade  # noqa: E402
-from db.readings import readings_frame, store_batch  # noqa: E402
-from db.trends import trend  # noqa: E402
+from db.catalog import add_fishway, add_site, add_tag
+from db.engine import make_engine
+from db.migrate import upgrade
+from db.readings import readings_frame, store_batch
+from db.trends import trend
 
 T0 = 1_767_225_600  # 2026-01-01T00:00:00Z, epoch seconds
 BATCH = 10_000

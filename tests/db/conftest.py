@@ -46,7 +46,7 @@ def pg_server():
     """A running throw-away PostgreSQL server (skips when the machine has none)."""
     try:
         server = pg_server_module.PgServer.start()
-    except pg_server_module.PgUnavailable as exc:
+    except pg_server_module.PgUnavailableError as exc:
         pytest.skip(f"PostgreSQL not available on this machine: {exc}")
     yield server
     server.stop()

@@ -6,7 +6,7 @@ clear cycle.
 """
 from __future__ import annotations
 
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 
 import pandas as pd
 import pytest
@@ -14,7 +14,7 @@ import pytest
 from db.alarms import alarm_events_frame, alarms_frame, record_alarm_event
 from db.models import ALARM_STATES
 
-T = datetime(2026, 9, 1, 10, 0, tzinfo=timezone.utc)
+T = datetime(2026, 9, 1, 10, 0, tzinfo=UTC)
 M = timedelta(minutes=1)
 
 
@@ -24,14 +24,19 @@ def test_isa_18_2_state_names():
                                  "out_of_service"}
 
 
+def event(engine, key, ts, kind, state, priority, **kwargs):  # noqa: PLR0917 - test shorthand
+    return record_alarm_event(engine, key, ts, kind=kind, state=state, priority=priority,
+                              **kwargs)
+
+
 def test_raise_acknowledge_clear_cycle(db_engine):
     key = "temp_high@1"
-    record_alarm_event(db_engine, key, T, "raised", "unacknowledged", "medium",
-                       rule="temp_high", value=21.4, why="7DADM above 20 C", message="hot")
-    record_alarm_event(db_engine, key, T + 3 * M, "acknowledged", "acknowledged", "medium",
-                       rule="temp_high", who="op1")
-    record_alarm_event(db_engine, key, T + 40 * M, "cleared", "normal", "medium",
-                       rule="temp_high", value=19.6)
+    event(db_engine, key, T, "raised", "unacknowledged", "medium",
+          rule="temp_high", value=21.4, why="7DADM above 20 C", message="hot")
+    event(db_engine, key, T + 3 * M, "acknowledged", "acknowledged", "medium",
+          rule="temp_high", who="op1")
+    event(db_engine, key, T + 40 * M, "cleared", "normal", "medium", rule="temp_high",
+          value=19.6)
     state = alarms_frame(db_engine).loc[key]
     assert state["state"] == "normal" and state["last_value"] == 19.6
     assert state["acknowledged_by"] == "op1"
@@ -44,10 +49,10 @@ def test_raise_acknowledge_clear_cycle(db_engine):
 
 
 def test_active_filter_and_shelving(db_engine):
-    record_alarm_event(db_engine, "a@1", T, "raised", "unacknowledged", "high", rule="a")
-    record_alarm_event(db_engine, "b@1", T, "raised", "unacknowledged", "low", rule="b")
-    record_alarm_event(db_engine, "b@1", T + M, "shelved", "shelved", "low", rule="b",
-                       who="sup1", why="sensor maintenance", shelved_until=T + 60 * M)
+    event(db_engine, "a@1", T, "raised", "unacknowledged", "high", rule="a")
+    event(db_engine, "b@1", T, "raised", "unacknowledged", "low", rule="b")
+    event(db_engine, "b@1", T + M, "shelved", "shelved", "low", rule="b",
+          who="sup1", why="sensor maintenance", shelved_until=T + 60 * M)
     active = alarms_frame(db_engine, states=["unacknowledged"])
     assert list(active.index) == ["a@1"]
     shelved = alarms_frame(db_engine).loc["b@1"]
@@ -64,5 +69,6 @@ def test_active_filter_and_shelving(db_engine):
 ])
 def test_invalid_events_are_refused(db_engine, kind, state, priority, extra):
     with pytest.raises(ValueError):
-        record_alarm_event(db_engine, "x@1", T, kind, state, priority, rule="x", **extra)
+        record_alarm_event(db_engine, "x@1", T, kind=kind, state=state, priority=priority,
+                           rule="x", **extra)
     assert alarms_frame(db_engine).empty

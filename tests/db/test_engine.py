@@ -6,7 +6,7 @@ Python's ``datetime``/``zoneinfo`` and pandas.
 """
 from __future__ import annotations
 
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta, timezone
 from zoneinfo import ZoneInfo
 
 import numpy as np
@@ -59,7 +59,7 @@ def test_sqlite_pragmas(tmp_path):
 
 
 @pytest.mark.parametrize("when, expected_ms", [
-    (datetime(1970, 1, 1, tzinfo=timezone.utc), 0),
+    (datetime(1970, 1, 1, tzinfo=UTC), 0),
     (datetime(2026, 3, 29, 3, 30, tzinfo=ZoneInfo("Etc/GMT-2")), None),
     (datetime(2026, 1, 1, 12, 0, 0, 999_999, tzinfo=timezone(timedelta(hours=-5))), None),
     (pd.Timestamp("2026-07-01T00:00:00.123456789Z"), 1782864000123),
@@ -98,5 +98,5 @@ def test_utc_datetime_column_round_trip():
         got = conn.execute(sa.select(table.c.at)).scalar()
         with pytest.raises(sa.exc.StatementError, match="naive"):
             conn.execute(table.insert().values(at=datetime(2026, 1, 1)))
-    assert got == local and got.tzinfo == timezone.utc
+    assert got == local and got.tzinfo == UTC
     engine.dispose()

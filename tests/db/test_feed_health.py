@@ -1,15 +1,23 @@
 """Feed health (db/feed_health.py) and the catalogue (db/catalog.py), both engines."""
 from __future__ import annotations
 
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 
 import pytest
 
-from db.catalog import QUANTITIES, add_fishway, add_site, add_tag, add_user, get_user, tag_id
-from db.catalog import tags_frame
+from db.catalog import (
+    QUANTITIES,
+    add_fishway,
+    add_site,
+    add_tag,
+    add_user,
+    get_user,
+    tag_id,
+    tags_frame,
+)
 from db.feed_health import feed_health_frame, update_feed_health
 
-T = datetime(2026, 10, 1, tzinfo=timezone.utc)
+T = datetime(2026, 10, 1, tzinfo=UTC)
 
 
 def test_feed_health_keeps_last_success_through_failures(db_engine):

@@ -6,7 +6,7 @@ Python's ``json`` round trip (RFC 8259 numbers).
 from __future__ import annotations
 
 import json
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 
 import pandas as pd
 import pytest
@@ -18,12 +18,12 @@ from db.history import (
     add_log_entry,
     latest_actuator_settings,
     operator_log_frame,
+    recommendations_frame,
     record_actuator_setting,
     record_recommendation,
-    recommendations_frame,
 )
 
-T = datetime(2026, 8, 3, 6, 0, tzinfo=timezone.utc)
+T = datetime(2026, 8, 3, 6, 0, tzinfo=UTC)
 DAY = timedelta(days=1)
 
 

@@ -6,7 +6,7 @@ The reference for "the schema" is the SQLAlchemy models (alembic's own compariso
 from __future__ import annotations
 
 import shutil
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import pytest
 import sqlalchemy as sa
@@ -21,7 +21,7 @@ from db.models import Base
 from db.readings import readings_frame, store_batch
 
 BACKENDS = ["sqlite", "postgresql"]
-T0 = datetime(2026, 6, 1, tzinfo=timezone.utc)
+T0 = datetime(2026, 6, 1, tzinfo=UTC)
 
 
 def _not_a_partition(obj, name, type_, reflected, compare_to) -> bool:
@@ -57,7 +57,7 @@ def _snapshot(engine, tag: int):
     with engine.connect() as conn:
         counts = {t: conn.execute(sa.text(f"SELECT count(*) FROM {t}")).scalar()
                   for t in ("sites", "fishways", "tags", "users", "readings", "rollups")}
-    return counts, readings_frame(engine, tag, T0, datetime(2027, 1, 1, tzinfo=timezone.utc))
+    return counts, readings_frame(engine, tag, T0, datetime(2027, 1, 1, tzinfo=UTC))
 
 
 def test_upgrade_again_keeps_data(db_engine):
@@ -120,7 +120,7 @@ def test_a_later_revision_adds_without_losing_data(db_engine, tmp_path):
     ("alarm_events", "DELETE FROM alarm_events"),
 ])
 def test_history_tables_are_append_only(db_engine, table, sql):
-    now = datetime(2026, 6, 1, tzinfo=timezone.utc)
+    now = datetime(2026, 6, 1, tzinfo=UTC)
     with db_engine.begin() as conn:
         conn.execute(sa.text("INSERT INTO operator_log (ts, author, kind, text) "
                              "VALUES (:ts, 'op1', 'observation', 'fish seen')"), {"ts": now})

@@ -7,7 +7,7 @@ seen in ioos-qc's ``QartodFlags``).
 from __future__ import annotations
 
 import random
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta, timezone
 
 import numpy as np
 import pandas as pd
@@ -18,7 +18,7 @@ from ioos_qc.qartod import QartodFlags
 from db import readings as readings_module
 from db.readings import latest_values, readings_frame, store_batch, validate_batch
 
-T0 = datetime(2026, 3, 1, tzinfo=timezone.utc)
+T0 = datetime(2026, 3, 1, tzinfo=UTC)
 T0_S = int(T0.timestamp())
 
 

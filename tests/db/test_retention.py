@@ -5,7 +5,7 @@ against pandas; month bounds against Python's ``datetime`` (proleptic Gregorian)
 """
 from __future__ import annotations
 
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 
 import numpy as np
 import pandas as pd
@@ -24,7 +24,7 @@ from db.readings import readings_frame, store_batch
 from db.retention import prune
 from db.rollups import RESOLUTIONS_S, rollups_frame
 
-NOW = datetime(2027, 6, 15, 12, 0, tzinfo=timezone.utc)
+NOW = datetime(2027, 6, 15, 12, 0, tzinfo=UTC)
 
 
 def hourly_rows(tag: int, start: datetime, hours: int) -> list[tuple]:
@@ -75,16 +75,16 @@ def test_prune_argument_checks(db_engine):
 @pytest.mark.parametrize("year, month", [(2026, 1), (2026, 12), (2028, 2), (2027, 2)])
 def test_month_bounds(year, month):
     lo, hi = month_bounds_ms(year, month)
-    first = datetime(year, month, 1, tzinfo=timezone.utc)
-    nxt = datetime(year + month // 12, month % 12 + 1, 1, tzinfo=timezone.utc)
+    first = datetime(year, month, 1, tzinfo=UTC)
+    nxt = datetime(year + month // 12, month % 12 + 1, 1, tzinfo=UTC)
     assert (lo, hi) == (int(first.timestamp()) * 1000, int(nxt.timestamp()) * 1000)
     assert months_between_ms(lo, hi) == [(year, month)]
     assert months_between_ms(lo - 1, hi + 1)[1:-1] == [(year, month)]
 
 
 def test_ensure_partitions(db_engine, tags):
-    since = datetime(2029, 11, 20, tzinfo=timezone.utc)
-    until = datetime(2030, 2, 1, tzinfo=timezone.utc)
+    since = datetime(2029, 11, 20, tzinfo=UTC)
+    until = datetime(2030, 2, 1, tzinfo=UTC)
     created = ensure_partitions(db_engine, until=until, since=since)
     if not is_postgresql(db_engine):
         assert created == [] and existing_partitions(db_engine) == {}
@@ -96,14 +96,14 @@ def test_ensure_partitions(db_engine, tags):
     assert {(2029, 11), (2030, 2)} <= set(have)
     # a reading lands in its month's partition
     store_batch(db_engine, [(tags["level"], datetime(2030, 1, 31, 23, 59, 59, 999000,
-                                                     tzinfo=timezone.utc), 1.0, 1)])
+                                                     tzinfo=UTC), 1.0, 1)])
     with db_engine.connect() as conn:
         assert conn.execute(sa.text("SELECT count(*) FROM readings_p203001")).scalar() == 1
         assert conn.execute(sa.text("SELECT count(*) FROM readings_p203002")).scalar() == 0
 
 
 def test_store_batch_creates_missing_partitions(db_engine, tags):
-    when = [datetime(2031, 7, 1, tzinfo=timezone.utc), datetime(2024, 2, 29, tzinfo=timezone.utc)]
+    when = [datetime(2031, 7, 1, tzinfo=UTC), datetime(2024, 2, 29, tzinfo=UTC)]
     assert store_batch(db_engine, [(tags["temp"], w, 1.0, 1) for w in when]) == 2
     got = readings_frame(db_engine, tags["temp"], when[1], when[0] + timedelta(1))
     np.testing.assert_array_equal(got.index, pd.DatetimeIndex(sorted(when)).as_unit("ms"))

@@ -8,7 +8,7 @@ these widths, which all divide a day).
 from __future__ import annotations
 
 import random
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 
 import numpy as np
 import pandas as pd
@@ -19,7 +19,7 @@ from hypothesis import strategies as st
 from db.readings import readings_frame, store_batch
 from db.rollups import RESOLUTIONS_S, rollup_deltas, rollups_frame
 
-T0 = datetime(2026, 4, 10, 21, 0, tzinfo=timezone.utc)
+T0 = datetime(2026, 4, 10, 21, 0, tzinfo=UTC)
 T0_S = int(T0.timestamp())
 
 

@@ -33,7 +33,8 @@ def test_bytes_per_reading_sqlite(tmp_path):
     con = sqlite3.connect(path)
     con.execute("VACUUM")
     assert con.execute("SELECT count(*) FROM readings").fetchone()[0] == N
-    table_bytes = con.execute("SELECT sum(pgsize) FROM dbstat WHERE name = 'readings'").fetchone()[0]
+    table_bytes = con.execute(
+        "SELECT sum(pgsize) FROM dbstat WHERE name = 'readings'").fetchone()[0]
     con.close()
     per_reading_table = table_bytes / N
     per_reading_file = os.path.getsize(path) / N

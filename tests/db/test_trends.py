@@ -8,7 +8,7 @@ on rollups, except in the two partial buckets at the ends of the range).
 """
 from __future__ import annotations
 
-from datetime import datetime, timedelta, timezone
+from datetime import UTC, datetime, timedelta
 
 import numpy as np
 import pandas as pd
@@ -18,7 +18,7 @@ from db.readings import readings_frame, store_batch
 from db.retention import prune
 from db.trends import choose_resolution_s, m4_indices, trend
 
-T0 = datetime(2026, 5, 1, tzinfo=timezone.utc)
+T0 = datetime(2026, 5, 1, tzinfo=UTC)
 T0_S = int(T0.timestamp())
 
 

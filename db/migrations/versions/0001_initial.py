@@ -11,7 +11,7 @@ revision keeps building the same schema whatever the models become.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from datetime import datetime, timezone
+from datetime import UTC, datetime
 
 import sqlalchemy as sa
 from alembic import op
@@ -34,7 +34,7 @@ APPEND_ONLY = ("alarm_events", "operator_log")
 
 
 def _month_start_ms(year: int, month: int) -> int:
-    return int(datetime(year, month, 1, tzinfo=timezone.utc).timestamp()) * 1000
+    return int(datetime(year, month, 1, tzinfo=UTC).timestamp()) * 1000
 
 
 def _create_catalogue() -> None:
@@ -50,8 +50,8 @@ def _create_catalogue() -> None:
     op.create_table(
         "fishways",
         sa.Column("id", sa.Integer, primary_key=True),
-        sa.Column("site_id", sa.Integer, sa.ForeignKey("sites.id", name="fk_fishways_site_id_sites"),
-                  nullable=False),
+        sa.Column("site_id", sa.Integer,
+                  sa.ForeignKey("sites.id", name="fk_fishways_site_id_sites"), nullable=False),
         sa.Column("name", sa.String(200), nullable=False),
         sa.Column("kind", sa.String(40), nullable=False, server_default=""),
         sa.Column("description", sa.Text, nullable=False, server_default=""),
@@ -107,7 +107,7 @@ def _create_readings(dialect: str) -> None:
         postgresql_partition_by="RANGE (ts_ms)",
     )
     if dialect == "postgresql":
-        now = datetime.now(timezone.utc)
+        now = datetime.now(UTC)
         months = [(now.year, now.month)]
         months.append((now.year + 1, 1) if now.month == 12 else (now.year, now.month + 1))
         for year, month in months:
