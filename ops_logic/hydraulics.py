@@ -17,13 +17,13 @@ from bisect import bisect_left
 from ops_logic.properties import water_density
 
 __all__ = [
-    "G",
     "KC_TABLE",
+    "G",
     "kindsvater_carter_coefficients",
     "orifice_flow",
     "power_density",
-    "villemonte_factor",
     "vertical_slot_flow",
+    "villemonte_factor",
     "weir_flow",
 ]
 

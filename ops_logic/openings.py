@@ -19,9 +19,9 @@ from dataclasses import dataclass
 from typing import Protocol
 
 from ops_logic.hydraulics import (
-    G,
     KC_HEAD_CORRECTION_M,
     KC_LIMITS,
+    G,
     kindsvater_carter_coefficients,
 )
 

@@ -34,7 +34,7 @@ from ops_logic.openings import (
     upstream_level,
 )
 
-__all__ = ["ControlState", "Criterion", "PoolState", "Profile", "AuxState", "solve_profile"]
+__all__ = ["AuxState", "ControlState", "Criterion", "PoolState", "Profile", "solve_profile"]
 
 LEVEL_TOL_M = 1e-9
 """Convergence of the profile: the computed forebay matches the given one to this [m]."""
@@ -153,7 +153,7 @@ class Profile:
 class _March:
     """One upstream march for a trial entrance flow (kept small: this is the hot path)."""
 
-    __slots__ = ("aux_q", "dforebay", "forebay_needed", "deficit", "inflow", "levels")
+    __slots__ = ("aux_q", "deficit", "dforebay", "forebay_needed", "inflow", "levels")
 
     def __init__(self, n: int):
         self.levels = [0.0] * n

@@ -40,11 +40,11 @@ from ops_logic.units import UnitSystem, to_si
 
 __all__ = [
     "Band",
+    "Feed",
     "Fishway",
+    "Ingest",
     "Site",
     "SiteConfigError",
-    "Feed",
-    "Ingest",
     "demo_site_path",
     "load_site",
     "parse_site",
@@ -496,7 +496,7 @@ def _control_level(b: Any, *, highest: bool = False) -> float:
 
 
 def _check_fishway(f: Fishway) -> None:
-    fb_lo, fb_hi = f.forebay_range
+    fb_hi = f.forebay_range[1]
     if f.tailwater_range[1] >= fb_hi:
         _fail("tailwater_range", "the tailwater range must lie below the forebay range")
     if _control_level(f.exit) >= fb_hi:
@@ -598,9 +598,8 @@ def _dotted(loc: tuple[Any, ...]) -> str:
     for i, item in enumerate(loc):
         if isinstance(item, int):
             parts[-1:] = [f"{parts[-1]}[{item}]"] if parts else [f"[{item}]"]
-        elif item in _TAGS and i > 0 and isinstance(loc[i - 1], int | str):
-            continue
-        elif isinstance(item, str) and item.startswith("function-"):
+        elif (item in _TAGS and i > 0 and isinstance(loc[i - 1], int | str)) or (
+                isinstance(item, str) and item.startswith("function-")):
             continue
         else:
             parts.append(str(item))

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 from ops_logic.site import AdjustableWeirExit, Fishway, GravityAux, Site
 
-__all__ = ["TagDef", "site_tags", "gauged_pools"]
+__all__ = ["TagDef", "gauged_pools", "site_tags"]
 
 
 @dataclass(frozen=True)

@@ -98,7 +98,8 @@ def to_si(value: float | int | str, kind: str, system: UnitSystem) -> float:
         return float(quantity.to(si_unit).magnitude)
     except pint.DimensionalityError:
         want = _kind(kind)[1 if system == "us" else 0].replace("**", "^")
-        raise ValueError(f"{value!r} is not a {kind.replace('_', ' ')} (expected e.g. {want})")
+        raise ValueError(
+            f"{value!r} is not a {kind.replace('_', ' ')} (expected e.g. {want})") from None
 
 
 def from_si(value_si: float, kind: str, system: UnitSystem) -> float:

@@ -1,5 +1,7 @@
 """Solver invariants of ops_logic.profile, and a cross-check against an independent solve."""
 
+import itertools
+
 import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings
@@ -36,7 +38,8 @@ def assert_continuity(ladder: Ladder, p) -> None:
             q_out, du_out, dd_out = control_flow(ctrl[j + 1], zj, p.pools[j + 1].water_level_m)
         else:
             q_out, du_out, dd_out = control_flow(gates, zj, p.tailwater_m)
-        slack = (LEVEL_TOL_M if j == 0 else res) * (abs(du_in) + abs(dd_in) + abs(du_out) + abs(dd_out)) + 1e-9
+        sensitivity = abs(du_in) + abs(dd_in) + abs(du_out) + abs(dd_out)
+        slack = (LEVEL_TOL_M if j == 0 else res) * sensitivity + 1e-9
         assert abs(q_in + p.pools[j].aux_inflow_m3s - q_out) <= slack + 1e-6 * q_out, j
     assert p.entrance_flow_m3s == pytest.approx(
         p.ladder_flow_m3s + sum(a.flow_m3s for a in p.aux), rel=1e-6, abs=1e-9)
@@ -44,7 +47,7 @@ def assert_continuity(ladder: Ladder, p) -> None:
 
 def assert_monotone(p) -> None:
     levels = [p.forebay_m] + [x.water_level_m for x in p.pools] + [p.tailwater_m]
-    assert all(a >= b - 1e-9 for a, b in zip(levels, levels[1:], strict=False))
+    assert all(a >= b - 1e-9 for a, b in itertools.pairwise(levels))
 
 
 @pytest.mark.parametrize("fishway", ["east", "west"])
@@ -138,7 +141,8 @@ def test_profile_agrees_with_a_generic_simultaneous_solve(make_ladder, kind):
     assert z == pytest.approx([x.water_level_m for x in p.pools], abs=1e-7)
 
 
-@settings(max_examples=40, deadline=None, print_blob=True, suppress_health_check=[HealthCheck.too_slow])
+@settings(max_examples=40, deadline=None, print_blob=True,
+          suppress_health_check=[HealthCheck.too_slow])
 @given(n=st.integers(2, 14), step=st.floats(0.1, 0.45), width=st.floats(0.4, 2.5),
        kind=st.sampled_from(["weir", "weir_orifice", "vertical_slot"]),
        head=st.floats(0.05, 0.6), tw_frac=st.floats(0.0, 1.0), aux=st.booleans(),

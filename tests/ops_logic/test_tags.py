@@ -34,5 +34,5 @@ def test_overrides_apply_and_typos_are_refused(site_dict):
     tag = next(t for t in site_tags(parse_site(data)) if t.name == "t1.forebay_level")
     assert (tag.address, tag.poll_seconds) == ("ns=3;i=7", 2)
     data["ingest"] = {"tags": [{"name": "t1.forbay_level", "address": "x"}]}
-    with pytest.raises(ValueError, match="no such tag: t1.forbay_level"):
+    with pytest.raises(ValueError, match=r"no such tag: t1\.forbay_level"):
         site_tags(parse_site(data))
