@@ -124,14 +124,14 @@ def upsert_rollups_sql(dialect: str) -> str:
     """The merge statement for rollup delta rows.
 
     SQLite: one row per execution with ``?`` placeholders (for ``executemany``).
-    PostgreSQL: all rows in one execution, one array parameter per column (``unnest``).
+    PostgreSQL: all rows in one execution, one binary array parameter per column (``unnest``).
     """
     if dialect == "sqlite":
         least, greatest = "min", "max"
         source = f"VALUES ({', '.join(['?'] * len(ROLLUP_COLUMNS))})"
     else:
         least, greatest = "LEAST", "GREATEST"
-        arrays = ", ".join(f"%s::{t}[]" for t in _PG_ARRAY_TYPES)
+        arrays = ", ".join(f"%b::{t}[]" for t in _PG_ARRAY_TYPES)
         source = f"SELECT * FROM unnest({arrays})"
     older_min = ("(excluded.vmin < r.vmin OR "
                  "(excluded.vmin = r.vmin AND excluded.vmin_ms < r.vmin_ms))")
