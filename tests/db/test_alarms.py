@@ -24,7 +24,7 @@ def test_isa_18_2_state_names():
                                  "out_of_service"}
 
 
-def event(engine, key, ts, kind, state, priority, **kwargs):  # noqa: PLR0917 - test shorthand
+def event(engine, key, ts, kind, state, priority, **kwargs):
     return record_alarm_event(engine, key, ts, kind=kind, state=state, priority=priority,
                               **kwargs)
 
