@@ -5,8 +5,8 @@ Functions
 ``add_site(engine, name, *, time_zone="UTC", description="", now=None) -> int``
 ``add_fishway(engine, site_id, name, *, kind="", description="") -> int``
 ``add_tag(engine, fishway_id, name, quantity, unit, *, poll_period_s, source="",
-source_address="", fail_low=None, fail_high=None, suspect_low=None, suspect_high=None,
-description="") -> int``
+source_address="", role="", pool_id=None, setting=None, actuator=None, fail_low=None,
+fail_high=None, suspect_low=None, suspect_high=None, description="") -> int``
 ``tags_frame(engine, fishway_id=None) -> DataFrame`` (index ``id``, one column per tag field)
 ``tag_id(engine, name) -> int`` (KeyError when unknown)
 ``add_user(engine, name, role, password_hash, *, now=None) -> int``
@@ -16,6 +16,8 @@ A tag's ``quantity`` is one of :data:`QUANTITIES`; its limits (in the tag's unit
 QARTOD gross-range limits: readings outside ``[fail_low, fail_high]`` fail, outside
 ``[suspect_low, suspect_high]`` are suspect. ``source`` names the feed (e.g. ``opcua``,
 ``simulated``, ``csv``) and ``source_address`` the item within it (e.g. an OPC UA node id).
+``role``, ``pool_id``, ``setting`` and ``actuator`` carry the site model's description of
+the tag (``ops_logic.tags.TagDef``); a fishway's ``name`` is the site model's fishway id.
 Password hashing belongs to the sign-in code; this module stores the hash it is given.
 
 >>> from db.engine import make_engine
@@ -45,8 +47,8 @@ __all__ = ["QUANTITIES", "add_fishway", "add_site", "add_tag", "add_user", "get_
            "tag_id", "tags_frame"]
 
 #: Quantities a tag may measure (extend here; the column is free text).
-QUANTITIES = ("water_level", "temperature", "dissolved_oxygen", "position", "flow",
-              "velocity", "total_dissolved_gas", "head_difference", "other")
+QUANTITIES = ("water_level", "temperature", "dissolved_oxygen", "head_differential", "position",
+              "opening", "count", "flow", "status", "velocity", "total_dissolved_gas", "other")
 
 
 def _now(now: datetime | None) -> datetime:
@@ -87,8 +89,9 @@ def _check_limits(low: float | None, high: float | None, what: str) -> None:
 
 def add_tag(engine: Engine, fishway_id: int, name: str, quantity: str, unit: str, *,
             poll_period_s: float, source: str = "", source_address: str = "",
-            fail_low: float | None = None, fail_high: float | None = None,
-            suspect_low: float | None = None, suspect_high: float | None = None,
+            role: str = "", pool_id: str | None = None, setting: str | None = None,
+            actuator: str | None = None, fail_low: float | None = None,
+            fail_high: float | None = None, suspect_low: float | None = None, suspect_high: float | None = None,
             description: str = "") -> int:
     """Create a tag; return its id.
 
@@ -108,7 +111,8 @@ def add_tag(engine: Engine, fishway_id: int, name: str, quantity: str, unit: str
     return _insert(engine, Tag.__table__, {
         "fishway_id": fishway_id, "name": name, "quantity": quantity, "unit": unit,
         "poll_period_s": float(poll_period_s), "source": source,
-        "source_address": source_address, "fail_low": fail_low, "fail_high": fail_high,
+        "source_address": source_address, "role": role, "pool_id": pool_id,
+        "setting": setting, "actuator": actuator, "fail_low": fail_low, "fail_high": fail_high,
         "suspect_low": suspect_low, "suspect_high": suspect_high, "description": description,
     })
 

@@ -41,12 +41,14 @@ def test_feed_health_keeps_last_success_through_failures(db_engine):
 def test_catalogue(db_engine):
     site = add_site(db_engine, "Catalogue site", time_zone="Etc/GMT+8")
     fw = add_fishway(db_engine, site, "Upper ladder", kind="pool_and_weir")
-    t1 = add_tag(db_engine, fw, "U.pool3.level", "water_level", "m", poll_period_s=5,
+    t1 = add_tag(db_engine, fw, "U.pool3.level", "water_level", "m", poll_period_s=5, role="pool",
+                 pool_id="P3",
                  source="opcua", source_address="ns=2;i=1043", fail_low=90.0, fail_high=120.0,
                  suspect_low=95.0, suspect_high=115.0)
     tags = tags_frame(db_engine, fishway_id=fw)
     assert list(tags.index) == [t1] and tag_id(db_engine, "U.pool3.level") == t1
     row = tags.loc[t1]
+    assert (row["role"], row["pool_id"], row["setting"]) == ("pool", "P3", None)
     assert (row["fail_low"], row["suspect_high"], row["source_address"]) == \
         (90.0, 115.0, "ns=2;i=1043")
     with pytest.raises(KeyError):
@@ -73,7 +75,9 @@ def test_tag_validation(db_engine, kwargs):
 
 
 def test_quantities_cover_the_brief():
-    assert {"water_level", "temperature", "dissolved_oxygen", "position", "flow"} <= set(QUANTITIES)
+    # the brief, and the quantities ops_logic.tags.TagDef uses
+    assert {"water_level", "temperature", "dissolved_oxygen", "position", "flow",
+            "head_differential", "opening", "count", "status"} <= set(QUANTITIES)
 
 
 def test_user_role_is_checked(db_engine):
