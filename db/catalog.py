@@ -91,8 +91,8 @@ def add_tag(engine: Engine, fishway_id: int, name: str, quantity: str, unit: str
             poll_period_s: float, source: str = "", source_address: str = "",
             role: str = "", pool_id: str | None = None, setting: str | None = None,
             actuator: str | None = None, fail_low: float | None = None,
-            fail_high: float | None = None, suspect_low: float | None = None, suspect_high: float | None = None,
-            description: str = "") -> int:
+            fail_high: float | None = None, suspect_low: float | None = None,
+            suspect_high: float | None = None, description: str = "") -> int:
     """Create a tag; return its id.
 
     Raises ValueError for an unknown quantity, a poll period that is not positive, or
