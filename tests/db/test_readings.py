@@ -176,3 +176,24 @@ def _rollups(engine) -> list[tuple]:
         return [tuple(r) for r in conn.execute(sa.text(
             "SELECT tag_id, res_s, bucket_ms, n, vsum, vmin, vmax, vfirst, vlast, flag_max "
             "FROM rollups ORDER BY tag_id, res_s, bucket_ms"))]
+
+
+def test_concurrent_writers_never_double_count(db_engine, tags):
+    # Four threads send the same 2000 readings in different shuffled batches at once.
+    from concurrent.futures import ThreadPoolExecutor
+
+    rows = [(tags["level"], T0_S + 7 * i, float(i % 50), 1) for i in range(2000)]
+
+    def send(seed: int) -> int:
+        mine = rows[:]
+        random.Random(seed).shuffle(mine)
+        return sum(store_batch(db_engine, mine[i:i + 250]) for i in range(0, 2000, 250))
+
+    with ThreadPoolExecutor(4) as pool:
+        new = list(pool.map(send, range(4)))
+    assert sum(new) == 2000
+    assert count(db_engine, "readings") == 2000
+    with db_engine.connect() as conn:
+        per_res = dict(conn.execute(sa.text(
+            "SELECT res_s, sum(n) FROM rollups GROUP BY res_s")).all())
+    assert per_res == {60: 2000, 900: 2000, 3600: 2000, 86400: 2000}
