@@ -123,7 +123,7 @@ def _baffle_openings(b: WeirBaffle | WeirOrificeBaffle | SlotBaffle | OrificeBaf
                      floor_above: float, width_above: float) -> tuple[Opening, ...]:
     if isinstance(b, WeirBaffle):
         return (WeirOpening(b.crest, b.width, b.crest - floor_above,
-                            max(width_above, b.width), b.cd),)
+                            max(width_above, b.width), b.cd, cd_factor=b.cd_factor),)
     if isinstance(b, SlotBaffle):
         return (SlotOpening(b.invert, b.slot_width, b.cd),)
     out: list[Opening] = []
@@ -131,9 +131,9 @@ def _baffle_openings(b: WeirBaffle | WeirOrificeBaffle | SlotBaffle | OrificeBaf
         # each notch contracts in its share of the pool width (an approximation: the
         # contraction ratio of Kindsvater–Carter is defined for one notch in one channel)
         channel = width_above / b.weir_count
-        for _ in range(b.weir_count):
-            out.append(WeirOpening(b.crest, b.weir_width, b.crest - floor_above,
-                                   max(channel, b.weir_width), b.weir_cd))
+        out.append(WeirOpening(b.crest, b.weir_width, b.crest - floor_above,
+                               max(channel, b.weir_width), b.weir_cd, count=b.weir_count,
+                               cd_factor=b.weir_cd_factor))
     for o in b.orifices:
         out.append(OrificeOpening(o.invert, o.width, o.height, o.cd, o.count))
     return tuple(out)
@@ -221,8 +221,13 @@ class Ladder:
         if isinstance(ex, AdjustableWeirExit):
             crest = settings["exit_crest_m"]
             floor = ex.approach_floor if ex.approach_floor is not None else ex.pool.floor
-            out[0] = (WeirOpening(crest, ex.width, crest - floor, None, ex.cd),)
+            out[0] = (WeirOpening(crest, ex.width, crest - floor, None, ex.cd,
+                                  cd_factor=ex.cd_factor),)
         return out  # type: ignore[return-value]
+
+    def control_lows(self, controls: list[tuple[Opening, ...]]) -> list[float]:
+        """The level at which flow through each control starts (its lowest opening)."""
+        return [min(o.low_m for o in c) for c in controls]
 
     def gates(self, settings: Mapping[str, float]) -> tuple[Opening, ...]:
         """Entrance gate openings under ``settings``."""
@@ -232,7 +237,7 @@ class Ladder:
         return tuple(
             WeirOpening(settings[f"entrance_{g.id}_crest_m"], g.width,
                         settings[f"entrance_{g.id}_crest_m"] - floor,
-                        max(channel, g.width), g.cd)
+                        max(channel, g.width), g.cd, cd_factor=g.cd_factor)
             for g in gates)
 
     def pool_volume_m3(self, j: int, level_m: float) -> float:

@@ -55,7 +55,9 @@ class WeirOpening:
     """Sharp-crested rectangular weir: Kindsvater–Carter free flow × Villemonte factor.
 
     ``height_m`` is P (crest above the approach floor); ``channel_width_m`` is B for the
-    contraction ratio (``None``: full width); ``cd`` switches to Q = (2/3)·cd·√(2g)·b·h^1.5.
+    contraction ratio (``None``: full width); ``cd`` switches to Q = (2/3)·cd·√(2g)·b·h^1.5;
+    ``count`` identical notches side by side; ``cd_factor`` scales the Kindsvater–Carter
+    coefficient Ce (a calibrated correction that keeps the method's form).
     """
 
     crest_m: float
@@ -63,6 +65,8 @@ class WeirOpening:
     height_m: float
     channel_width_m: float | None = None
     cd: float | None = None
+    count: int = 1
+    cd_factor: float = 1.0
     kind: str = "weir"
     low_m: float = 0.0
     _c0: float = 0.0
@@ -74,12 +78,12 @@ class WeirOpening:
         self.low_m = self.crest_m
         height = max(self.height_m, 1e-6)
         if self.cd is not None:
-            self._c0 = (2.0 / 3.0) * SQRT_2G * self.width_m
+            self._c0 = (2.0 / 3.0) * SQRT_2G * self.width_m * self.count * self.cd_factor
             self._a, self._b_over_p, self._kh = self.cd, 0.0, 0.0
         else:
             ratio = 1.0 if self.channel_width_m is None else self.width_m / self.channel_width_m
             a, beta, kb = kindsvater_carter_coefficients(min(max(ratio, 0.0), 1.0))
-            self._c0 = (2.0 / 3.0) * SQRT_2G * (self.width_m + kb)
+            self._c0 = (2.0 / 3.0) * SQRT_2G * (self.width_m + kb) * self.count * self.cd_factor
             self._a, self._b_over_p, self._kh = a, beta / height, KC_HEAD_CORRECTION_M
 
     def flow(self, zu: float, zd: float) -> tuple[float, float, float]:
@@ -229,8 +233,8 @@ def control_flow(openings: tuple[Opening, ...], zu: float, zd: float
 
 
 def upstream_level(openings: tuple[Opening, ...], flow_m3s: float, zd: float,
-                   guess: float | None = None, *, tol_m: float = 1e-10
-                   ) -> tuple[float, float, float]:
+                   guess: float | None = None, *, tol_m: float = 1e-10,
+                   low_m: float | None = None) -> tuple[float, float, float]:
     """Level above a control that passes ``flow_m3s`` with the level ``zd`` below it.
 
     Returns ``(zu, dq/dzu, dq/dzd)`` at the solution. Safeguarded Newton: the flow is
@@ -238,13 +242,16 @@ def upstream_level(openings: tuple[Opening, ...], flow_m3s: float, zd: float,
     leaves it. ``flow_m3s`` ≤ 0 gives the level at which flow starts (the lowest opening, or
     ``zd`` if higher).
     """
-    lo = max(zd, min(o.low_m for o in openings))
+    if low_m is None:
+        low_m = min(o.low_m for o in openings)
+    lo = zd if zd > low_m else low_m
     if flow_m3s <= 0.0:
         return lo, 0.0, 0.0
     z = guess if guess is not None and guess > lo else lo + 0.1
     hi = math.inf
+    single = openings[0].flow if len(openings) == 1 else None
     for _ in range(200):
-        q, dqu, dqd = control_flow(openings, z, zd)
+        q, dqu, dqd = single(z, zd) if single is not None else control_flow(openings, z, zd)
         f = q - flow_m3s
         if abs(f) <= 1e-12 * flow_m3s:
             return z, dqu, dqd

@@ -18,8 +18,8 @@ from __future__ import annotations
 
 import math
 from collections.abc import Mapping
-from dataclasses import asdict, dataclass, field
-from typing import Any
+from dataclasses import dataclass, field
+from typing import Any, NamedTuple
 
 from scipy.optimize import brentq
 
@@ -27,9 +27,6 @@ from ops_logic.hydraulics import G, power_density
 from ops_logic.ladder import Ladder
 from ops_logic.openings import (
     Opening,
-    OrificeOpening,
-    SlotOpening,
-    WeirOpening,
     control_flow,
     upstream_level,
 )
@@ -40,8 +37,9 @@ LEVEL_TOL_M = 1e-9
 """Convergence of the profile: the computed forebay matches the given one to this [m]."""
 
 
-@dataclass(frozen=True)
-class PoolState:
+# The per-element records are NamedTuples: immutable like the frozen Profile that holds them,
+# and cheap to build forty at a time (this is on the solver's path).
+class PoolState(NamedTuple):
     id: str
     water_level_m: float
     floor_m: float
@@ -53,8 +51,7 @@ class PoolState:
     power_density_w_m3: float
 
 
-@dataclass(frozen=True)
-class ControlState:
+class ControlState(NamedTuple):
     id: str
     kind: str  # "exit", "baffle" or "gate"
     upstream_level_m: float
@@ -69,8 +66,7 @@ class ControlState:
     notes: tuple[str, ...] = ()
 
 
-@dataclass(frozen=True)
-class AuxState:
+class AuxState(NamedTuple):
     id: str
     type: str
     pool_id: str
@@ -80,8 +76,7 @@ class AuxState:
     setting_value: float
 
 
-@dataclass(frozen=True)
-class Criterion:
+class Criterion(NamedTuple):
     name: str
     value: float
     min: float | None
@@ -140,11 +135,11 @@ class Profile:
             "entrance_head_m": self.entrance_head_m,
             "in_criteria": self.in_criteria,
             "settings": dict(self.settings),
-            "pools": [asdict(p) for p in self.pools],
-            "controls": [{**asdict(c), "notes": list(c.notes)} for c in self.controls],
-            "gates": [{**asdict(c), "notes": list(c.notes)} for c in self.gates],
-            "aux": [asdict(a) for a in self.aux],
-            "criteria": [asdict(c) for c in self.criteria],
+            "pools": [p._asdict() for p in self.pools],
+            "controls": [{**c._asdict(), "notes": list(c.notes)} for c in self.controls],
+            "gates": [{**c._asdict(), "notes": list(c.notes)} for c in self.gates],
+            "aux": [a._asdict() for a in self.aux],
+            "criteria": [c._asdict() for c in self.criteria],
             "warnings": list(self.warnings),
         }
 
@@ -153,7 +148,8 @@ class Profile:
 class _March:
     """One upstream march for a trial entrance flow (kept small: this is the hot path)."""
 
-    __slots__ = ("aux_q", "deficit", "dforebay", "forebay_needed", "inflow", "levels")
+    __slots__ = ("aux_q", "deficit", "dforebay", "forebay_needed", "inflow", "levels",
+                 "source_q")
 
     def __init__(self, n: int):
         self.levels = [0.0] * n
@@ -162,6 +158,7 @@ class _March:
         self.forebay_needed = 0.0
         self.dforebay = 0.0
         self.deficit = 0.0
+        self.source_q: dict[str, float] = {}
 
 
 def _march(ladder: Ladder, q_e: float, forebay: float, tailwater: float,
@@ -170,6 +167,7 @@ def _march(ladder: Ladder, q_e: float, forebay: float, tailwater: float,
            guess: list[float] | None, *, clip: bool = False) -> _March:
     n = ladder.n_pools
     m = _March(n)
+    lows = ladder.control_lows(ctrl)
     z, du, _ = upstream_level(gates, q_e, tailwater, guess[n - 1] if guess else None)
     dz = 1.0 / du if du > 0.0 else 0.0
     q_out, dq_out = q_e, 1.0
@@ -178,6 +176,7 @@ def _march(ladder: Ladder, q_e: float, forebay: float, tailwater: float,
         a = da = 0.0
         for src in aux_by_pool.get(j, ()):
             q, dq = src.flow(forebay, tailwater, z, settings[src.setting], temp)
+            m.source_q[src.id] = q
             a += q
             da += dq
         m.aux_q[j] = a
@@ -192,7 +191,9 @@ def _march(ladder: Ladder, q_e: float, forebay: float, tailwater: float,
         g = None
         if guess:
             g = z + (guess[j - 1] - guess[j]) if j > 0 else None
-        zu, cu, cdn = upstream_level(ctrl[j], q_in, z, g)
+        if g is None and j < n - 1:
+            g = z + (z - m.levels[j + 1])  # cold start: the drop of the control below
+        zu, cu, cdn = upstream_level(ctrl[j], q_in, z, g, low_m=lows[j])
         z = zu
         dz = (dq_in - cdn * dz) / cu if cu > 0.0 else 0.0
         q_out, dq_out = q_in, dq_in
@@ -222,14 +223,20 @@ def solve_profile(ladder: Ladder, forebay_m: float, tailwater_m: float,
         aux_by_pool.setdefault(src.pool_index, []).append(src)
     guess = [p.water_level_m for p in warm.pools] if warm is not None else None
 
-    if warm is not None and warm.entrance_flow_m3s > 0.0:
-        x = warm.entrance_flow_m3s
-    else:
-        x = control_flow(ctrl[0], forebay_m, -math.inf)[0] * 0.6
-        for src in ladder.aux:
-            x += src.flow(forebay_m, tailwater_m, tailwater_m + 0.3, s[src.setting],
-                          temperature_c)[0]
-        x = max(x, 1e-3)
+    # first trial entrance flow: the exit's free flow (scaled by the warm profile's share of it)
+    # plus the auxiliary water at an estimated entrance-pool level
+    x = control_flow(ctrl[0], forebay_m, -math.inf)[0]
+    z_entrance = tailwater_m + ladder.fishway.targets.entrance_head.aim
+    if warm is not None and warm.state == "flowing":
+        free_then = control_flow(ctrl[0], warm.forebay_m, -math.inf)[0]
+        if free_then > 0.0:
+            x *= warm.ladder_flow_m3s / free_then
+        z_entrance = warm.pools[-1].water_level_m + tailwater_m - warm.tailwater_m
+    for src in ladder.aux:
+        z = z_entrance if src.pool_index == ladder.n_pools - 1 or guess is None else guess[
+            src.pool_index]
+        x += src.flow(forebay_m, tailwater_m, z, s[src.setting], temperature_c)[0]
+    x = max(x, 1e-3)
     if forebay_m <= min(o.low_m for o in ctrl[0]):
         return _rest_state(ladder, forebay_m, tailwater_m, s, ctrl, gates, aux_by_pool,
                            temperature_c, guess)
@@ -303,28 +310,30 @@ def _control_state(cid: str, kind: str, openings: tuple[Opening, ...], zu: float
                    flow: float) -> ControlState:
     weir_head = sub = v_orifice = v_slot = None
     notes: list[str] = []
-    regime = "free"
-    if flow <= 0.0:
-        regime = "no flow"
+    flowing = flow > 0.0
+    regime = "free" if flowing else "no flow"
     for o in openings:
-        if flow > 0.0:
-            notes.extend(o.notes(zu, zd))
-        if isinstance(o, WeirOpening):
-            weir_head = max(zu - o.crest_m, 0.0)
-            if zd > o.crest_m and weir_head > 0.0:
+        if flowing:
+            found = o.notes(zu, zd)
+            if found:
+                notes.extend(found)
+        k = o.kind
+        if k == "weir":
+            weir_head = zu - o.crest_m if zu > o.crest_m else 0.0
+            if flowing and zd > o.crest_m and weir_head > 0.0:
                 sub = (zd - o.crest_m) / weir_head
-                regime = "submerged" if flow > 0.0 else regime
-        elif isinstance(o, OrificeOpening):
-            q = o.flow(zu, zd)[0]
-            v_orifice = q / o.area_m2
-            if zd > o.soffit_m and flow > 0.0 and weir_head is None:
                 regime = "submerged"
-        elif isinstance(o, SlotOpening):
-            v_slot = math.sqrt(2.0 * G * max(zu - max(zd, o.invert_m), 0.0))
-            if zd > o.invert_m and flow > 0.0:
+        elif k == "orifice":
+            v_orifice = o.flow(zu, zd)[0] / o.area_m2
+            if flowing and zd > o.soffit_m and weir_head is None:
+                regime = "submerged"
+        else:
+            head = zu - (zd if zd > o.invert_m else o.invert_m)
+            v_slot = math.sqrt(2.0 * G * head) if head > 0.0 else 0.0
+            if flowing and zd > o.invert_m:
                 regime = "submerged"
     return ControlState(cid, kind, zu, zd, flow, zu - zd, regime, weir_head, sub, v_orifice,
-                        v_slot, tuple(dict.fromkeys(notes)))
+                        v_slot, tuple(dict.fromkeys(notes)) if notes else ())
 
 
 def _build(ladder: Ladder, forebay: float, tailwater: float, s: Mapping[str, float],
@@ -338,6 +347,9 @@ def _build(ladder: Ladder, forebay: float, tailwater: float, s: Mapping[str, flo
         inflow[0] = 0.0
     warnings: list[str] = []
     pools, controls = [], []
+    # power density rho*g*Q*dh/V, the form of ops_logic.hydraulics.power_density, with the
+    # density looked up once per profile
+    rho_g = power_density(1.0, 1.0, 1.0, temperature_c=temp)
     for j in range(n):
         zu = forebay if j == 0 else levels[j - 1]
         flow = inflow[j]
@@ -351,11 +363,12 @@ def _build(ladder: Ladder, forebay: float, tailwater: float, s: Mapping[str, flo
             warnings.append(f"pool {ladder.pool_ids[j]} is dry")
             pd = 0.0
         else:
-            pd = power_density(flow, drop, vol, temperature_c=temp) if flow > 0.0 else 0.0
+            pd = rho_g * flow * drop / vol if flow > 0.0 else 0.0
         pools.append(PoolState(ladder.pool_ids[j], levels[j], ladder.pool_floor_m[j],
                                levels[j] - ladder.pool_floor_m[j], vol, flow, m.aux_q[j],
                                drop, pd))
-        warnings.extend(f"{state.id}: {note}" for note in state.notes)
+        if state.notes:
+            warnings.extend(f"{state.id}: {note}" for note in state.notes)
     z_e = levels[-1]
     gate_states = []
     for g, o in zip(f.entrance.gates, gates, strict=True):
@@ -366,7 +379,9 @@ def _build(ladder: Ladder, forebay: float, tailwater: float, s: Mapping[str, flo
     aux_states = []
     for src in ladder.aux:
         j = src.pool_index
-        q = src.flow(forebay, tailwater, levels[j], s[src.setting], temp)[0]
+        q = m.source_q.get(src.id)
+        if q is None:
+            q = src.flow(forebay, tailwater, levels[j], s[src.setting], temp)[0]
         aux_states.append(AuxState(src.id, src.spec.type, ladder.pool_ids[j], q,
                                    q / src.spec.diffuser_area, src.setting, s[src.setting]))
     ladder_flow = 0.0 if no_flow else inflow[0]

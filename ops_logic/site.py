@@ -83,6 +83,9 @@ Velocity = Annotated[float, _quantity("velocity"), Field(gt=0)]
 PowerDensity = Annotated[float, _quantity("power_density"), Field(gt=0)]
 LevelRange = Annotated[tuple[Elevation, Elevation], AfterValidator(_ordered)]
 Coefficient = Annotated[float, Field(gt=0, le=1.5)]
+CdFactor = Annotated[float, Field(gt=0.3, le=2.0)]
+"""A calibrated multiplier on a weir's Kindsvater–Carter coefficient (``cd`` unset) or on its
+given ``cd``: the field correction keeps the method's form."""
 Ident = Annotated[str, Field(pattern=r"^[A-Za-z][A-Za-z0-9_]*$", max_length=32)]
 
 _FROZEN = ConfigDict(extra="forbid", frozen=True)
@@ -133,6 +136,7 @@ class WeirBaffle(BaseModel):
     crest: Elevation
     width: Length
     cd: Coefficient | None = None
+    cd_factor: CdFactor = 1.0
     pool: Pool
 
 
@@ -147,6 +151,7 @@ class WeirOrificeBaffle(BaseModel):
     weir_width: Length
     weir_count: Literal[1, 2] = 1
     weir_cd: Coefficient | None = None
+    weir_cd_factor: CdFactor = 1.0
     orifices: list[Orifice] = Field(min_length=1)
     pool: Pool
 
@@ -183,6 +188,7 @@ class AdjustableWeirExit(BaseModel):
     width: Length
     crest_range: LevelRange
     cd: Coefficient | None = None
+    cd_factor: CdFactor = 1.0
     approach_floor: Elevation | None = None
     pool: Pool
 
@@ -201,6 +207,7 @@ class EntranceGate(BaseModel):
     width: Length
     crest_range: LevelRange
     cd: Coefficient | None = None
+    cd_factor: CdFactor = 1.0
 
 
 class Entrance(BaseModel):
