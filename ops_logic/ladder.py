@@ -36,6 +36,7 @@ from ops_logic.site import (
     WeirBaffle,
     WeirOrificeBaffle,
 )
+from ops_logic.units import UnitSystem, format_quantity
 
 if TYPE_CHECKING:
     from ops_logic.profile import Profile
@@ -142,8 +143,10 @@ def _baffle_openings(b: WeirBaffle | WeirOrificeBaffle | SlotBaffle | OrificeBaf
 class Ladder:
     """The solver's model of one fishway, built from its validated site entry."""
 
-    def __init__(self, fishway: Fishway):
+    def __init__(self, fishway: Fishway, *, units: UnitSystem = "si"):
         self.fishway = fishway
+        self.units: UnitSystem = units
+        """Display unit system for the text of reasons (values stay SI everywhere else)."""
         self.id = fishway.id
         pools = fishway.pools
         self.pool_ids: tuple[str, ...] = tuple(fishway.pool_ids())
@@ -247,7 +250,13 @@ class Ladder:
     @classmethod
     def from_site(cls, site: Site, fishway_id: str) -> Ladder:
         """The ladder of fishway ``fishway_id`` of a loaded site."""
-        return cls(site.fishway(fishway_id))
+        return cls(site.fishway(fishway_id), units=site.site.units)
+
+    def length_text(self, value_m: float) -> str:
+        """A level or length for a message: display units, with SI beside US values."""
+        if self.units == "si":
+            return f"{value_m:.3f} m"
+        return f"{format_quantity(value_m, 'length', 'us')} ({value_m:.3f} m)"
 
     def solve(self, forebay: float, tailwater: float, settings: Mapping[str, float] | None = None,
               *, temperature_c: float = 10.0, warm: Profile | None = None) -> Profile:

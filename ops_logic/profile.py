@@ -213,8 +213,8 @@ def solve_profile(ladder: Ladder, forebay_m: float, tailwater_m: float,
     if not (math.isfinite(forebay_m) and math.isfinite(tailwater_m)):
         raise ValueError("forebay and tailwater must be finite numbers")
     if tailwater_m >= forebay_m:
-        raise ValueError(f"tailwater {tailwater_m:.3f} m is at or above the forebay "
-                         f"{forebay_m:.3f} m: no flow can pass the ladder")
+        raise ValueError(f"tailwater {ladder.length_text(tailwater_m)} is at or above the "
+                         f"forebay {ladder.length_text(forebay_m)}: no flow can pass the ladder")
     s = ladder.check_settings(settings)
     ctrl = ladder.controls(s)
     gates = ladder.gates(s)
@@ -416,8 +416,8 @@ def _build(ladder: Ladder, forebay: float, tailwater: float, s: Mapping[str, flo
 
     if no_flow:
         low = min(o.low_m for o in ctrl[0])
-        reason = (f"no flow through the ladder: the forebay ({forebay:.3f} m) is below the exit "
-                  f"control ({low:.3f} m)" if forebay <= low else
+        reason = (f"no flow through the ladder: the forebay ({ladder.length_text(forebay)}) is "
+                  f"below the exit control ({ladder.length_text(low)})" if forebay <= low else
                   "no flow through the ladder: the forebay cannot lift water over the upper "
                   "controls")
     else:

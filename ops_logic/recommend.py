@@ -308,7 +308,8 @@ def _move_entrance_aim(ladder: Ladder, s: dict[str, float], bounds: _Bounds, pro
                                                                          key=lambda c: c[0])
     if cost < base - 1e-9:
         s.update(t)
-        notes.append(f"entrance head aimed at {p.entrance_head_m:.3f} m within its band to "
+        notes.append(f"entrance head aimed at {ladder.length_text(p.entrance_head_m)} within its "
+                     "band to "
                      "ease the lower pools")
         return p
     return profile
@@ -340,23 +341,30 @@ def _explain(ladder: Ladder, p: Profile, s: Mapping[str, float], bounds: _Bounds
     t = ladder.fishway.targets
     limited = [c for c in changes if c.limited_by == "rate limit" or (
         c.limited_by == "range" and c.unit == "m")]
-    lim_text = "; ".join(f"{c.label} held at its {c.limited_by} ({c.recommended:.3f} {c.unit})"
+    def value_text(c: SettingChange) -> str:
+        if c.unit == "m":
+            return ladder.length_text(c.recommended)
+        return f"{c.recommended:.0f} pumps" if c.unit == "pumps" else f"{c.recommended:.1f} %"
+
+    lim_text = "; ".join(f"{c.label} held at its {c.limited_by} ({value_text(c)})"
                          for c in limited)
     if "exit_crest_m" in s and t.exit_head is not None:
         lowest = ladder.settings["exit_crest_m"].low
         if forebay - lowest < t.exit_head.min - 1e-9:
             return False, "exit_head", (
-                f"forebay too low for the exit weir range: {forebay:.3f} m leaves "
-                f"{forebay - lowest:.3f} m over the lowest crest ({lowest:.3f} m), below the "
-                f"minimum head {t.exit_head.min:.3f} m")
+                f"forebay too low for the exit weir range: {ladder.length_text(forebay)} leaves "
+                f"{ladder.length_text(forebay - lowest)} over the lowest crest "
+                f"({ladder.length_text(lowest)}), below the minimum head "
+                f"{ladder.length_text(t.exit_head.min)}")
     if p.state == "no_flow":
         return False, "ladder_flow", p.reason
     outside = [c for c in p.criteria if not c.ok and c.name in _LEVEL_RANGES]
     if outside:
         c = outside[0]
         side = "below" if c.min is not None and c.value < c.min else "above"
-        return False, c.name, (f"{c.name.replace('_', ' ')} {c.value:.3f} m is {side} the "
-                               f"fishway's operating range {c.min:.3f}–{c.max:.3f} m; the "
+        return False, c.name, (f"{c.name.replace('_', ' ')} {ladder.length_text(c.value)} is "
+                               f"{side} the fishway's operating range "
+                               f"{ladder.length_text(c.min)} to {ladder.length_text(c.max)}; the "
                                "settings shown are the best within reach")
     failing = [c for c in p.criteria if not c.ok]
     if failing:

@@ -389,23 +389,9 @@ class Fishway(BaseModel):
     rate_limits: RateLimits = RateLimits()
     gauging: Gauging = Gauging()
 
-    @model_validator(mode="before")
-    @classmethod
-    def _expand_repeats(cls, data: Any, info: ValidationInfo) -> Any:
-        if not isinstance(data, dict) or not isinstance(data.get("baffles"), list):
-            return data
-        system: UnitSystem = (info.context or {}).get("units", "si")
-        out: list[Any] = []
-        for i, item in enumerate(data["baffles"]):
-            if not isinstance(item, dict) or "repeat" not in item:
-                out.append(item)
-                continue
-            out.extend(_repeat_baffle(item, i, system))
-        return {**data, "baffles": out}
-
     @model_validator(mode="after")
-    def _consistent(self) -> Fishway:
-        _check_fishway(self)
+    def _consistent(self, info: ValidationInfo) -> Fishway:
+        _check_fishway(self, (info.context or {}).get("units", "si"))
         return self
 
     @property
@@ -502,7 +488,13 @@ def _control_level(b: Any, *, highest: bool = False) -> float:
     return min(o.invert for o in b.orifices)
 
 
-def _check_fishway(f: Fishway) -> None:
+def _level(value_m: float, system: UnitSystem) -> str:
+    if system == "si":
+        return f"{value_m:.3f} m"
+    return f"{value_m / 0.3048:.2f} ft ({value_m:.3f} m)"
+
+
+def _check_fishway(f: Fishway, system: UnitSystem = "si") -> None:
     fb_hi = f.forebay_range[1]
     if f.tailwater_range[1] >= fb_hi:
         _fail("tailwater_range", "the tailwater range must lie below the forebay range")
@@ -526,9 +518,9 @@ def _check_fishway(f: Fishway) -> None:
         above = upstream[i]
         level_above = _control_level(above, highest=True)
         if _control_level(b) > level_above + 1e-9:
-            _fail(f"baffles[{i}]", f"control at {_control_level(b):.3f} m lies above the one "
-                  f"upstream of it ({level_above:.3f} m): list baffles in order from "
-                  "the exit downstream")
+            _fail(f"baffles[{i}]", f"control at {_level(_control_level(b), system)} lies above "
+                  f"the one upstream of it ({_level(level_above, system)}): list baffles in "
+                  "order from the exit downstream")
         floor_above = above.pool.floor
         if isinstance(b, WeirBaffle | WeirOrificeBaffle) and b.crest <= floor_above:
             _fail(f"baffles[{i}].crest", "must lie above the floor of the pool upstream of it")
@@ -633,6 +625,59 @@ def _format(exc: ValidationError) -> list[tuple[str, str]]:
     return out
 
 
+def _expand_repeats(data: dict[str, Any], system: UnitSystem
+                    ) -> tuple[dict[str, Any], dict[tuple[int, int], str]]:
+    """Expand ``repeat``/``drop`` baffle entries; also return, for each expanded baffle
+    (fishway index, baffle index), how to name it in an error: ``baffles[2] (copy 5 of 38)``."""
+    names: dict[tuple[int, int], str] = {}
+    fishways = data.get("fishways")
+    if not isinstance(fishways, list):
+        return data, names
+    out_fw = []
+    for fi, fw in enumerate(fishways):
+        if not isinstance(fw, dict) or not isinstance(fw.get("baffles"), list):
+            out_fw.append(fw)
+            continue
+        out: list[Any] = []
+        for i, item in enumerate(fw["baffles"]):
+            if isinstance(item, dict) and "repeat" in item:
+                try:
+                    copies = _repeat_baffle(item, i, system)
+                except SiteConfigError as exc:
+                    raise SiteConfigError("", [(f"fishways[{fi}].{p}", m)
+                                               for p, m in exc.errors]) from None
+                for k in range(len(copies)):
+                    names[(fi, len(out) + k)] = f"baffles[{i}] (copy {k + 1} of {len(copies)})"
+                out.extend(copies)
+            else:
+                names[(fi, len(out))] = f"baffles[{i}]"
+                out.append(item)
+        out_fw.append({**fw, "baffles": out})
+    return {**data, "fishways": out_fw}, names
+
+
+def _file_paths(errors: list[tuple[str, str]], names: dict[tuple[int, int], str]
+                ) -> list[tuple[str, str]]:
+    """Name expanded baffles by their entry in the file; one line for the copies of an entry
+    that share an error."""
+    out: list[tuple[str, str]] = []
+    seen: set[tuple[str, str]] = set()
+    for raw, msg in errors:
+        path = raw
+        m = re.match(r"^fishways\[(\d+)\]\.baffles\[(\d+)\](.*)$", raw)
+        if m:
+            name = names.get((int(m.group(1)), int(m.group(2))))
+            if name is not None:
+                entry = re.sub(r" \(copy \d+ of (\d+)\)", r" (all \1 copies)", name)
+                key = (f"fishways[{m.group(1)}].{entry}{m.group(3)}", msg)
+                if key in seen:
+                    continue
+                seen.add(key)
+                path = f"fishways[{m.group(1)}].{name}{m.group(3)}"
+        out.append((path, msg))
+    return out
+
+
 def parse_site(data: dict[str, Any], source: str = "<site>") -> Site:
     """Validate a parsed TOML document (a dict) into a :class:`Site` with SI values."""
     units = data.get("site", {}).get("units") if isinstance(data.get("site"), dict) else None
@@ -640,11 +685,13 @@ def parse_site(data: dict[str, Any], source: str = "<site>") -> Site:
         raise SiteConfigError(source, [("site.units", "must be 'us' (ft, cfs) or 'si' "
                                         f"(m, m³/s), got {units!r}")])
     try:
-        return Site.model_validate(data, context={"units": units})
-    except ValidationError as exc:
-        raise SiteConfigError(source, _format(exc)) from None
-    except SiteConfigError as exc:  # raised while expanding repeated baffles
+        expanded, names = _expand_repeats(data, units)
+    except SiteConfigError as exc:
         raise SiteConfigError(source, exc.errors) from None
+    try:
+        return Site.model_validate(expanded, context={"units": units})
+    except ValidationError as exc:
+        raise SiteConfigError(source, _file_paths(_format(exc), names)) from None
 
 
 def demo_site_path() -> Path:

@@ -83,3 +83,14 @@ def test_unknown_time_zone_is_refused(site_dict):
     data["site"]["time_zone"] = "Mars/Olympus"
     with pytest.raises(SiteConfigError, match="time zone"):
         parse_site(data)
+
+
+def test_an_error_in_a_repeated_entry_is_reported_once_by_its_file_entry(site_dict):
+    data = site_dict(n_baffles=2)
+    base = data["fishways"][0]["baffles"][0]
+    data["fishways"][0]["baffles"] = [data["fishways"][0]["baffles"][1],
+                                      {**base, "width": -1.0, "repeat": 5, "drop": 0.1}]
+    with pytest.raises(SiteConfigError) as err:
+        parse_site(data)
+    width_errors = [p for p, _ in err.value.errors if p.endswith(".width")]
+    assert width_errors == ["fishways[0].baffles[1] (copy 1 of 5).width"]
