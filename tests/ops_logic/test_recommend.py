@@ -60,8 +60,16 @@ def test_pumps_make_up_what_gravity_cannot(east):
     rec = east.recommend(254.0 * FT, 215.0 * FT, current)
     assert rec.settings["aux_G1_opening_pct"] == pytest.approx(25.0)
     assert rec.settings["aux_PS1_pumps"] == 1.0  # rate limit: one pump per adjustment
+    # without rate limits: gravity alone is capped by its diffuser velocity limit below the
+    # aim, so the fewest pumps that close the gap run (one), and every diffuser stays in limit
     free = east.recommend(254.0 * FT, 215.0 * FT)
-    assert free.settings["aux_PS1_pumps"] == 0.0  # gravity water first when it can
+    t = east.fishway.targets
+    g1 = east.fishway.aux[0]
+    gravity_cap = t.max_diffuser_velocity.wall * g1.diffuser_area
+    needed = t.min_attraction_flow - free.profile.ladder_flow_m3s
+    assert gravity_cap < needed
+    assert free.settings["aux_PS1_pumps"] == 1.0
+    assert all(free.profile.criterion(f"diffuser_velocity:{a}").ok for a in ("G1", "PS1"))
 
 
 def test_forebay_too_low_for_the_exit_weir_range_is_infeasible_with_a_reason(east):
