@@ -36,6 +36,7 @@ from pydantic import (
     model_validator,
 )
 
+from ops_logic.alarms.config import AlarmSettings
 from ops_logic.units import UnitSystem, to_si
 
 __all__ = [
@@ -388,6 +389,7 @@ class Fishway(BaseModel):
     targets: Targets
     rate_limits: RateLimits = RateLimits()
     gauging: Gauging = Gauging()
+    alarms: AlarmSettings = AlarmSettings()
 
     @model_validator(mode="after")
     def _consistent(self, info: ValidationInfo) -> Fishway:
