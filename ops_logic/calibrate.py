@@ -10,18 +10,27 @@ squares (``scipy.optimize.least_squares``, trust-region reflective, default boun
 over the measured pool levels z_obs of every observation i, where z_p is the level of pool p
 computed by the profile solver with every coefficient of kind k multiplied by m_k.
 
-Weirs without an explicit coefficient use Kindsvater–Carter (Ce varies with h/P and carries
-head and width corrections). The site file can only hold one plain ``cd`` per weir, so a fitted
-kind's Kindsvater–Carter weirs are switched to the simple form Q = (2/3)·cd·√(2g)·b·h^1.5 with
-``cd = m × Ce_eq``, where Ce_eq is the median over the observations of the Kindsvater–Carter
-free-flow discharge expressed in that form (``Q_KC / ((2/3)·√(2g)·b·h^1.5)``, heads ≥ 0.03 m)
-under the uncalibrated model. The reported cd values are then exactly the model that was
-fitted: writing them into the site file reproduces the fit. The simple form drops the h/P
-dependence of Ce and the head and width corrections, so even at m = 1 it is not the
-Kindsvater–Carter model: on the demo East ladder Ce_eq spans about 1 % over the heads of a
-season and the computed pool levels move by up to a few millimetres (most in the backwatered
-lower pools); the "before" error is always that of the site file as it stands. Kinds that are
-not fitted are left untouched, Kindsvater–Carter included.
+Each multiplier scales the field of the site file that belongs to that opening, so the fitted
+model keeps every method's form and is, at m = 1, exactly the model of the site file:
+
+* weirs (baffle weirs and weir notches: kind ``weir``; entrance gates: ``entrance_gate``) —
+  their ``cd_factor`` (``weir_cd_factor`` on a weir-with-orifice baffle), which multiplies the
+  Kindsvater–Carter Ce (``cd`` unset: Ce = a + β·h/P with its head and width corrections,
+  times the Villemonte submergence factor) or the given ``cd``; an existing factor is
+  multiplied, the weir's ``cd`` is never touched, so a Kindsvater–Carter weir stays
+  Kindsvater–Carter;
+* orifices and vertical slots — their ``cd``;
+* the exit — whatever it has: an adjustable weir's ``cd_factor``; a fixed exit's weir
+  ``cd_factor`` / ``weir_cd_factor``, orifice ``cd`` or slot ``cd`` (all by the one ``exit``
+  multiplier).
+
+The result lists, per fitted kind, the site-file fields to write, as paths inside the
+fishway's entry with the fitted value (``baffles[*].weir_cd_factor = 0.93``,
+``baffles[*].orifices[*].cd = 0.568``, ``entrance.gates[E1].cd_factor = 1.04``): ``[*]`` means
+every element of the list, otherwise the elements are named by id as loaded (``B01 … B38`` for
+unnamed baffles, including those of a ``repeat`` entry). Writing them reproduces the fitted
+model; a value the site file would reject (cd_factor outside 0.3–2.0, cd outside 0–1.5) is
+warned about. Kinds that are not fitted are left untouched.
 
 Observations CSV (one row per observation; ``#`` lines and blank lines are skipped):
 
@@ -41,7 +50,8 @@ A bad row raises :class:`ObservationError` naming the line, the column and the r
 
 Reference: Branch, Coleman & Li (1999), "A subspace, interior and conjugate gradient method for
 large-scale bound-constrained minimization problems", SIAM J. Sci. Comput. 21(1) (the
-trust-region reflective method of ``least_squares``); Kindsvater & Carter (1957).
+trust-region reflective method of ``least_squares``); Kindsvater & Carter (1957), J. Hydraulics
+Div. ASCE 83(6); Villemonte (1947), "Submerged weir discharge studies", Eng. News-Record 139.
 """
 
 from __future__ import annotations
@@ -52,16 +62,18 @@ import math
 from collections.abc import Iterable, Mapping, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, NamedTuple
 
 import numpy as np
+from pydantic import TypeAdapter, ValidationError
 from scipy.optimize import least_squares
 
-from ops_logic.hydraulics import KC_LIMITS
 from ops_logic.ladder import Ladder, SettingError
-from ops_logic.openings import SQRT_2G, Opening, WeirOpening
+from ops_logic.openings import Opening
 from ops_logic.site import (
     AdjustableWeirExit,
+    CdFactor,
+    Coefficient,
     Fishway,
     OrificeBaffle,
     SlotBaffle,
@@ -79,7 +91,6 @@ __all__ = [
     "ObservationError",
     "PoolResidual",
     "calibrate",
-    "kc_equivalent_cd",
     "parse_observations",
     "read_observations",
     "scaled_fishway",
@@ -255,45 +266,83 @@ def read_observations(path: str | Path, ladder: Ladder, units: UnitSystem) -> li
 
 
 # -- the model with scaled coefficients ------------------------------------------------------
-def _scale(b: Any, kinds: tuple[str, str, str], m: Mapping[str, float],
-           kc: Mapping[str, float | None]) -> Any:
-    """Copy of one control with its coefficients scaled; ``kinds`` = (weir, orifice, slot)."""
+class _Coef(NamedTuple):
+    """One coefficient of a control: its kind, site-file field (``orifice`` = index in
+    ``orifices``, the field then being ``cd``) and value now."""
+
+    kind: str
+    field: str
+    orifice: int | None
+    value: float
+
+    @property
+    def subpath(self) -> str:
+        return f"orifices[{self.orifice}].cd" if self.orifice is not None else self.field
+
+
+def _control_coefs(b: Any, kinds: tuple[str, str, str]) -> list[_Coef]:
+    """The coefficients of one control; ``kinds`` = (weir, orifice, slot) kind names. A weir
+    is scaled through its cd_factor (× its Kindsvater–Carter Ce or its given cd), never cd."""
     weir, orifice, slot = kinds
+    out = []
+    if isinstance(b, AdjustableWeirExit | WeirBaffle):
+        out.append(_Coef(weir, "cd_factor", None, b.cd_factor))
+    elif isinstance(b, WeirOrificeBaffle):
+        out.append(_Coef(weir, "weir_cd_factor", None, b.weir_cd_factor))
+    elif isinstance(b, SlotBaffle):
+        out.append(_Coef(slot, "cd", None, b.cd))
+    if isinstance(b, WeirOrificeBaffle | OrificeBaffle):
+        out.extend(_Coef(orifice, "cd", i, o.cd) for i, o in enumerate(b.orifices))
+    return out
+
+
+_AS_BAFFLE = ("weir", "orifice", "slot")
+_AS_EXIT = ("exit", "exit", "exit")
+
+
+def _elements(fishway: Fishway) -> list[tuple[str, str, list[_Coef]]]:
+    """(site-file section, element id, coefficients) of the exit, baffles and gates."""
+    out = [("exit", fishway.exit.id or "exit", _control_coefs(fishway.exit, _AS_EXIT))]
+    out += [("baffles", bid, _control_coefs(b, _AS_BAFFLE))
+            for bid, b in zip(fishway.baffle_ids(), fishway.baffles, strict=True)]
+    out += [("entrance.gates", g.id, [_Coef("entrance_gate", "cd_factor", None, g.cd_factor)])
+            for g in fishway.entrance.gates]
+    return out
+
+
+def _scale(b: Any, coefs: list[_Coef], m: Mapping[str, float]) -> Any:
     upd: dict[str, Any] = {}
-
-    def weir_cd(cd: float | None, kind: str) -> float | None:
-        base = cd if cd is not None else kc.get(kind)
-        return None if base is None else m[kind] * base
-
-    if isinstance(b, AdjustableWeirExit | WeirBaffle) and weir in m:
-        upd["cd"] = weir_cd(b.cd, weir)
-    elif isinstance(b, SlotBaffle) and slot in m:
-        upd["cd"] = m[slot] * b.cd
-    if isinstance(b, WeirOrificeBaffle) and weir in m:
-        upd["weir_cd"] = weir_cd(b.weir_cd, weir)
-    if isinstance(b, WeirOrificeBaffle | OrificeBaffle) and orifice in m:
-        upd["orifices"] = [o.model_copy(update={"cd": m[orifice] * o.cd}) for o in b.orifices]
+    orifices = list(getattr(b, "orifices", []))
+    for c in coefs:
+        if c.kind not in m:
+            continue
+        if c.orifice is not None:
+            orifices[c.orifice] = orifices[c.orifice].model_copy(
+                update={"cd": m[c.kind] * c.value})
+            upd["orifices"] = orifices
+        else:
+            upd[c.field] = m[c.kind] * c.value
     return b.model_copy(update=upd) if upd else b
 
 
-def scaled_fishway(fishway: Fishway, multipliers: Mapping[str, float],
-                   kc_cd: Mapping[str, float | None] | None = None) -> Fishway:
+def scaled_fishway(fishway: Fishway, multipliers: Mapping[str, float]) -> Fishway:
     """``fishway`` with every coefficient of each kind in ``multipliers`` scaled by it.
 
-    Kindsvater–Carter weirs (no cd) of a scaled kind get ``cd = m × kc_cd[kind]`` (the simple
-    form; see the module docstring); kinds absent from ``multipliers`` are unchanged.
+    Weirs (exit, baffle weirs and notches, entrance gates) have their ``cd_factor`` (or
+    ``weir_cd_factor``) multiplied, so a Kindsvater–Carter weir stays Kindsvater–Carter;
+    orifices and slots have their ``cd`` multiplied. Kinds absent from ``multipliers`` are
+    unchanged; at multiplier 1 the model is the original one exactly.
     """
-    kc = dict(kc_cd or {})
     for kind in multipliers:
         if kind not in OPENING_KINDS:
             raise ValueError(f"unknown opening kind {kind!r} (kinds: {', '.join(OPENING_KINDS)})")
-    exit_ = _scale(fishway.exit, ("exit",) * 3, multipliers, kc)
-    baffles = [_scale(b, ("weir", "orifice", "slot"), multipliers, kc) for b in fishway.baffles]
-    gates = fishway.entrance.gates
-    if "entrance_gate" in multipliers:
-        gates = [g.model_copy(update={"cd": (multipliers["entrance_gate"] * base) if (
-            base := g.cd if g.cd is not None else kc.get("entrance_gate")) is not None else None})
-            for g in gates]
+    coefs = [c for _, _, c in _elements(fishway)]
+    n = len(fishway.baffles)
+    exit_ = _scale(fishway.exit, coefs[0], multipliers)
+    baffles = [_scale(b, c, multipliers)
+               for b, c in zip(fishway.baffles, coefs[1:n + 1], strict=True)]
+    gates = [_scale(g, c, multipliers)
+             for g, c in zip(fishway.entrance.gates, coefs[n + 1:], strict=True)]
     entrance = fishway.entrance.model_copy(update={"gates": gates})
     return fishway.model_copy(update={"exit": exit_, "baffles": baffles, "entrance": entrance})
 
@@ -310,13 +359,14 @@ def _openings_by_kind(ladder: Ladder, settings: Mapping[str, float]
 
 
 def _baseline(ladder: Ladder, observations: Sequence[Observation]
-              ) -> tuple[dict[str, int], dict[str, bool], dict[str, list[float]], list[Any]]:
+              ) -> tuple[dict[str, int], dict[str, bool], list[Any]]:
+    """Openings per kind (merged identical notches and orifices counted one by one), whether
+    each kind flows in some observation, and the uncalibrated profiles."""
     counts: dict[str, int] = {}
     flowing: dict[str, bool] = {}
-    ce: dict[str, list[float]] = {}
     profiles = []
-    for k, _, _ in _openings_by_kind(ladder, ladder.default_settings()):
-        counts[k] = counts.get(k, 0) + 1
+    for k, _, o in _openings_by_kind(ladder, ladder.default_settings()):
+        counts[k] = counts.get(k, 0) + int(getattr(o, "count", 1))
         flowing.setdefault(k, False)
     for obs in observations:
         p = ladder.solve(obs.forebay_m, obs.tailwater_m, obs.settings,
@@ -324,36 +374,31 @@ def _baseline(ladder: Ladder, observations: Sequence[Observation]
         profiles.append(p)
         z = [p.forebay_m, *(q.water_level_m for q in p.pools), p.tailwater_m]
         for kind, j, o in _openings_by_kind(ladder, obs.settings):
-            zu, zd = z[j], z[j + 1]
-            flowing[kind] = flowing[kind] or o.flow(zu, zd)[0] > 1e-9
-            if isinstance(o, WeirOpening) and o.cd is None:
-                h = zu - o.crest_m
-                if h >= KC_LIMITS["min_head_m"]:
-                    q_free = o.flow(zu, -math.inf)[0]
-                    ce.setdefault(kind, []).append(
-                        q_free / ((2.0 / 3.0) * SQRT_2G * o.width_m * h**1.5))
-    return counts, flowing, ce, profiles
-
-
-def kc_equivalent_cd(ladder: Ladder, observations: Sequence[Observation]
-                     ) -> dict[str, float | None]:
-    """Per kind, the median simple-form cd equivalent to its Kindsvater–Carter weirs over the
-    observations (``None`` where a kind has no Kindsvater–Carter weir that flows)."""
-    _, _, ce, _ = _baseline(ladder, observations)
-    return {k: (float(np.median(v)) if v else None) for k, v in ce.items()}
+            flowing[kind] = flowing[kind] or o.flow(z[j], z[j + 1])[0] > 1e-9
+    return counts, flowing, profiles
 
 
 # -- results ---------------------------------------------------------------------------------
 @dataclass(frozen=True)
 class CoefficientChange:
-    """A coefficient to write into the site file: ``where`` lists the elements, ``field`` the
-    key; ``cd_before`` is ``None`` for Kindsvater–Carter (then ``cd_equivalent`` is Ce_eq)."""
+    """A value to write into the site file: ``path`` is the field within the fishway's entry
+    (``baffles[*].weir_cd_factor``: every baffle; ``baffles[B01 … B38]``: those baffles, by
+    id as loaded); ``elements`` the ids; ``before`` the value now (1 for a
+    cd_factor left at its default) and ``after`` = multiplier × ``before``."""
 
-    field: str
-    where: str
-    cd_before: float | None
-    cd_equivalent: float
-    cd_after: float
+    path: str
+    elements: tuple[str, ...]
+    before: float
+    after: float
+
+    @property
+    def assignment(self) -> str:
+        """``'baffles[*].weir_cd_factor = 0.93'`` (4 decimals, trailing zeros dropped)."""
+        return f"{self.path} = {round(self.after, 4):g}"
+
+    def to_dict(self) -> dict[str, Any]:
+        return {"path": self.path, "elements": list(self.elements), "before": self.before,
+                "after": self.after, "assignment": self.assignment}
 
 
 @dataclass(frozen=True)
@@ -396,55 +441,80 @@ class CalibrationResult:
     def multipliers(self) -> dict[str, float]:
         return {k.kind: k.multiplier for k in self.kinds}
 
+    @property
+    def site_file(self) -> dict[str, float]:
+        """Field path (within the fishway's entry) -> fitted value, for every change."""
+        return {c.path: c.after for k in self.kinds for c in k.coefficients}
+
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dict (SI, unit-suffixed keys)."""
         return {
             "fishway": self.fishway_id, "n_observations": self.n_observations,
             "n_levels": self.n_levels, "rms_before_m": self.rms_before_m,
             "rms_after_m": self.rms_after_m, "success": self.success, "message": self.message,
-            "multipliers": self.multipliers,
+            "multipliers": self.multipliers, "site_file": self.site_file,
             "kinds": [{"kind": k.kind, "openings": k.openings, "fitted": k.fitted,
                        "multiplier": k.multiplier, "std_error": k.std_error, "note": k.note,
-                       "coefficients": [c.__dict__.copy() for c in k.coefficients]}
+                       "coefficients": [c.to_dict() for c in k.coefficients]}
                       for k in self.kinds],
             "pools": [p.__dict__.copy() for p in self.pools],
             "warnings": list(self.warnings),
         }
 
 
-def _coefficients(fishway: Fishway, kind: str, m: float, kc: float | None
-                  ) -> tuple[CoefficientChange, ...]:
-    groups: dict[tuple[str, float | None], list[str]] = {}
-    pairs: list[tuple[str, str, float | None]] = []  # (element id, field, cd)
+def _id_list(ids: list[str], order: list[str]) -> str:
+    """``'B01 … B38, B40'``: runs of three or more consecutive elements shortened."""
+    pos = [order.index(i) for i in ids]
+    runs: list[list[int]] = []
+    for p in pos:
+        if runs and p == runs[-1][-1] + 1:
+            runs[-1].append(p)
+        else:
+            runs.append([p])
+    parts = []
+    for r in runs:
+        parts += ([f"{order[r[0]]} … {order[r[-1]]}"] if len(r) >= 3 else [order[i] for i in r])
+    return ", ".join(parts)
 
-    def add_control(eid: str, b: Any, as_kind: tuple[str, str, str]) -> None:
-        w, o, s = as_kind
-        if isinstance(b, AdjustableWeirExit | WeirBaffle) and w == kind:
-            pairs.append((eid, "cd", b.cd))
-        if isinstance(b, WeirOrificeBaffle) and w == kind:
-            pairs.append((eid, "weir_cd", b.weir_cd))
-        if isinstance(b, SlotBaffle) and s == kind:
-            pairs.append((eid, "cd", b.cd))
-        if isinstance(b, WeirOrificeBaffle | OrificeBaffle) and o == kind:
-            pairs.extend((eid, "orifices.cd", x.cd) for x in b.orifices)
 
-    add_control(fishway.exit.id or "exit", fishway.exit, ("exit",) * 3)
-    for bid, b in zip(fishway.baffle_ids(), fishway.baffles, strict=True):
-        add_control(bid, b, ("weir", "orifice", "slot"))
-    if kind == "entrance_gate":
-        pairs.extend((g.id, "cd", g.cd) for g in fishway.entrance.gates)
-    for eid, fld, cd in pairs:
-        ids = groups.setdefault((fld, cd), [])
-        if eid not in ids:
-            ids.append(eid)
+def _coefficients(fishway: Fishway, kind: str, m: float) -> tuple[CoefficientChange, ...]:
+    """The site-file fields of kind ``kind`` and their values after scaling by ``m``; elements
+    sharing a field and a value now are grouped (``[*]``: every element of the section)."""
+    groups: dict[tuple[str, str, float], list[str]] = {}
+    order: dict[str, list[str]] = {}
+    for section, eid, coefs in _elements(fishway):
+        order.setdefault(section, []).append(eid)
+        mine = [c for c in coefs if c.kind == kind]
+        orf = [c for c in mine if c.orifice is not None]
+        if orf and len({c.value for c in orf}) == 1:  # one value for all its orifices
+            mine = [c for c in mine if c.orifice is None] + [orf[0]._replace(orifice=-1)]
+        for c in mine:
+            sub = "orifices[*].cd" if c.orifice == -1 else c.subpath
+            groups.setdefault((section, sub, c.value), []).append(eid)
     out = []
-    for (fld, cd), ids in groups.items():
-        base = cd if cd is not None else kc
-        if base is None:
-            continue
-        where = ids[0] if len(ids) == 1 else f"{ids[0]} … {ids[-1]} ({len(ids)})"
-        out.append(CoefficientChange(fld, where, cd, base, m * base))
+    for (section, sub, before), ids in groups.items():
+        if section == "exit":
+            path = f"exit.{sub}"
+        else:
+            every = order[section]
+            sel = "*" if ids == every and len(every) > 1 else _id_list(ids, every)
+            path = f"{section}[{sel}].{sub}"
+        out.append(CoefficientChange(path, tuple(ids), before, m * before))
     return tuple(out)
+
+
+_FACTOR_CHECK = TypeAdapter(CdFactor)
+_CD_CHECK = TypeAdapter(Coefficient)
+
+
+def _outside_schema(change: CoefficientChange) -> str | None:
+    """Why the site file would reject ``change.after`` (``None`` if it accepts it)."""
+    check = _FACTOR_CHECK if change.path.endswith("cd_factor") else _CD_CHECK
+    try:
+        check.validate_python(change.after)
+    except ValidationError as exc:
+        return exc.errors(include_url=False)[0]["msg"].lower()
+    return None
 
 
 def _levels(ladder: Ladder, observations: Sequence[Observation], warm: list[Any]) -> np.ndarray:
@@ -479,8 +549,7 @@ def calibrate(ladder: Ladder, observations: Sequence[Observation], *,
     if not 0.0 < lo < 1.0 < hi:
         raise ValueError(f"bounds must satisfy 0 < low < 1 < high, got {bounds}")
     f = ladder.fishway
-    counts, flowing, ce, base_profiles = _baseline(ladder, observations)
-    kc = {k: (float(np.median(v)) if v else None) for k, v in ce.items()}
+    counts, flowing, base_profiles = _baseline(ladder, observations)
     wanted = list(counts) if kinds is None else list(kinds)
     warnings: list[str] = []
     for k in wanted:
@@ -502,7 +571,7 @@ def calibrate(ladder: Ladder, observations: Sequence[Observation], *,
     warm: list[Any] = list(base_profiles)
 
     def residuals(x: np.ndarray) -> np.ndarray:
-        trial = Ladder(scaled_fishway(f, dict(zip(fit, x, strict=True)), kc))
+        trial = Ladder(scaled_fishway(f, dict(zip(fit, x, strict=True))))
         return _levels(trial, observations, warm)
 
     std: dict[str, float | None] = {}
@@ -547,10 +616,13 @@ def calibrate(ladder: Ladder, observations: Sequence[Observation], *,
     out_kinds = []
     for k in counts:
         m = fitted.get(k, 1.0)
-        coefs = _coefficients(f, k, m, kc.get(k)) if k in fitted else ()
+        coefs = _coefficients(f, k, m) if k in fitted else ()
         note = "" if k in fitted else ("never flows" if not flowing[k] else "not fitted")
-        if k in fitted and kc.get(k) is not None:
-            note = "Kindsvater–Carter weirs switched to the simple form (cd = m × Ce_eq)"
+        for c in coefs:
+            why = _outside_schema(c)
+            if why is not None:
+                warnings.append(f"{k}: {c.assignment}: the site file would reject it ({why}); "
+                                "the model or the data may be wrong")
         out_kinds.append(KindFit(k, counts[k], k in fitted, m, std.get(k), coefs, note))
     pools = []
     ids = [pid for obs in observations for pid in obs.levels_m]
@@ -560,4 +632,4 @@ def calibrate(ladder: Ladder, observations: Sequence[Observation], *,
                                   float(np.mean(r[mask]))))
     return CalibrationResult(f.id, n_obs, int(z0.size), tuple(out_kinds), _rms(z0), _rms(r),
                              tuple(pools), tuple(warnings), success, message,
-                             scaled_fishway(f, fitted, kc))
+                             scaled_fishway(f, fitted))

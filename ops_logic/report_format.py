@@ -291,14 +291,17 @@ def format_calibration(result: CalibrationResult, ladder: Ladder, system: UnitSy
                       [(k.kind, k.openings, f"{k.multiplier:.4f}" if k.fitted else "1 (kept)",
                         f"{k.std_error:.4f}" if k.std_error is not None else "—", k.note)
                        for k in r.kinds], [False, True, True, True, False])]
-    rows = [(k.kind, c.field, c.where,
-             "Kindsvater–Carter" if c.cd_before is None else f"{c.cd_before:.4f}",
-             f"{c.cd_equivalent:.4f}", f"{c.cd_after:.4f}")
+    rows = [(c.assignment, k.kind, f"{c.before:.4f}", f"{k.multiplier:.4f}")
             for k in r.kinds for c in k.coefficients]
     if rows:
-        out += ["", "Coefficients for the site file (cd fitted = multiplier × cd as modelled)",
-                text_table(["kind", "field", "where", "cd now", "cd as modelled", "cd fitted"],
-                           rows, [False, False, False, True, True, True])]
+        out += ["", f"Write into the site file, in the entry of fishway {r.fishway_id!r} "
+                "(fitted = multiplier × now; [*] = every element of the list)",
+                text_table(["field = fitted value", "kind", "now", "multiplier"], rows,
+                           [False, False, True, True])]
+        if any("[*]" not in c.path and not c.path.startswith("exit.")
+               for k in r.kinds for c in k.coefficients):
+            out.append("  (elements named by id as loaded: unnamed baffles are B01, B02, … "
+                       "in order, those of a `repeat` entry included)")
     out += ["", "Residuals per measured pool (model − measured)",
             text_table(["pool", "n", "RMS before", "RMS after", "mean after"],
                        [(p.pool_id, p.n, _small_length(p.rms_before_m, system),

@@ -7,23 +7,26 @@ compares the fit with an independent closed-form least-squares solution.
 
 from __future__ import annotations
 
+import copy
 import json
 import math
+import re
 import tomllib
 
 import numpy as np
 import pytest
 
 from ops_logic.calibrate import (
+    OPENING_KINDS,
     Observation,
     ObservationError,
     calibrate,
-    kc_equivalent_cd,
     parse_observations,
     scaled_fishway,
 )
 from ops_logic.ladder import Ladder
-from ops_logic.site import load_site, parse_site
+from ops_logic.report_format import format_calibration
+from ops_logic.site import Fishway, load_site, parse_site
 
 FT = 0.3048  # the international foot, exactly (1959 definition)
 G = 9.80665  # standard gravity [m/s²] (CGPM 1901 definition)
@@ -61,38 +64,61 @@ def _measure(truth: Ladder, conditions: list[Observation], pools=GAUGED) -> list
 
 # -- the fit ---------------------------------------------------------------------------------
 def test_recovers_known_multipliers_kc_site(east_cal):
-    # self-consistency: the truth is the fit's own model family (Kindsvater–Carter weirs as
-    # the simple form with Ce_eq) with known multipliers; the fit must find them again.
+    # self-consistency: the truth is the site file's own model (Kindsvater–Carter weirs kept,
+    # scaled through cd_factor) with known multipliers; the model form does not change, so
+    # the fit must find them again to the solver's precision, weirs included.
     cond = _conditions(east_cal)
-    kc = kc_equivalent_cd(east_cal, cond)
-    assert set(kc) == {"exit", "weir", "entrance_gate"}
     true = {"exit": 0.95, "weir": 1.08, "orifice": 0.9, "entrance_gate": 1.1}
-    truth = Ladder(scaled_fishway(east_cal.fishway, true, kc))
+    truth = Ladder(scaled_fishway(east_cal.fishway, true))
+    assert truth.fishway.baffles[0].weir_cd is None and truth.fishway.exit.cd is None
     result = calibrate(east_cal, _measure(truth, cond))
     assert result.success
     for kind, m in true.items():
-        assert result.multipliers[kind] == pytest.approx(m, abs=1e-4)
-    assert result.rms_after_m < 1e-6
+        assert result.multipliers[kind] == pytest.approx(m, rel=1e-7)
+    assert result.rms_after_m < 1e-8
     assert result.rms_before_m > 1e-3
     assert result.n_observations == 8 and result.n_levels == 8 * len(GAUGED)
+    site = result.site_file
+    assert set(site) == {"exit.cd_factor", "baffles[*].weir_cd_factor",
+                         "baffles[*].orifices[*].cd", "entrance.gates[*].cd_factor"}
+    for path, value in [("exit.cd_factor", 0.95), ("baffles[*].weir_cd_factor", 1.08),
+                        ("baffles[*].orifices[*].cd", 0.61 * 0.9),
+                        ("entrance.gates[*].cd_factor", 1.1)]:
+        assert site[path] == pytest.approx(value, rel=1e-7)
+    # 39 baffles × 2 merged notches, 39 orifices, 2 gates, 1 exit weir
+    assert {k.kind: k.openings for k in result.kinds} == {
+        "exit": 1, "weir": 78, "orifice": 39, "entrance_gate": 2}
 
 
-def test_recovers_orifice_cd_times_0_9_on_explicit_cd_site(east_cal):
-    # self-consistency, the case of the issue: every coefficient explicit (no KC), the truth
-    # has every orifice cd 0.61 × 0.9; the fit must give orifice 0.9 and 1 elsewhere.
-    base = scaled_fishway(east_cal.fishway, {"exit": 1.0, "weir": 1.0, "entrance_gate": 1.0},
-                          {"exit": 0.62, "weir": 0.60, "entrance_gate": 0.61})
-    assert all(b.weir_cd == 0.60 for b in base.baffles)
+def _explicit_cd(f: Fishway) -> Fishway:
+    """The demo fishway with every weir given a plain cd (no Kindsvater–Carter)."""
+    gates = [g.model_copy(update={"cd": 0.61}) for g in f.entrance.gates]
+    return f.model_copy(update={
+        "exit": f.exit.model_copy(update={"cd": 0.62}),
+        "baffles": [b.model_copy(update={"weir_cd": 0.60}) for b in f.baffles],
+        "entrance": f.entrance.model_copy(update={"gates": gates})})
+
+
+@pytest.mark.parametrize("explicit", [False, True], ids=["kindsvater_carter", "explicit_cd"])
+def test_recovers_orifice_cd_times_0_9(east_cal, explicit):
+    # self-consistency, the case of the issue: the truth has every orifice cd 0.61 × 0.9;
+    # the fit must give orifice 0.9 and 1 elsewhere, and say which field to write.
+    base = _explicit_cd(east_cal.fishway) if explicit else east_cal.fishway
     truth = Ladder(scaled_fishway(base, {"orifice": 0.9}))
     assert truth.fishway.baffles[0].orifices[0].cd == pytest.approx(0.61 * 0.9)
-    cond = _conditions(east_cal)
-    result = calibrate(Ladder(base), _measure(truth, cond))
+    result = calibrate(Ladder(base), _measure(truth, _conditions(east_cal)))
     assert result.multipliers == pytest.approx(
-        {"exit": 1.0, "weir": 1.0, "orifice": 0.9, "entrance_gate": 1.0}, abs=1e-4)
+        {"exit": 1.0, "weir": 1.0, "orifice": 0.9, "entrance_gate": 1.0}, rel=1e-7)
     orifice = next(k for k in result.kinds if k.kind == "orifice")
     (change,) = orifice.coefficients
-    assert change.cd_before == 0.61 and change.cd_after == pytest.approx(0.549, abs=1e-4)
-    json.dumps(result.to_dict(), allow_nan=False)  # the CLI's --json payload must be strict
+    assert change.path == "baffles[*].orifices[*].cd" and len(change.elements) == 39
+    assert change.before == 0.61 and change.after == pytest.approx(0.549, rel=1e-7)
+    assert change.assignment == "baffles[*].orifices[*].cd = 0.549"
+    d = json.loads(json.dumps(result.to_dict(), allow_nan=False))  # strict: the CLI's --json
+    assert d["site_file"]["baffles[*].orifices[*].cd"] == pytest.approx(0.549, rel=1e-7)
+    text = format_calibration(result, Ladder(base), "us")
+    assert "baffles[*].orifices[*].cd = 0.549" in text
+    assert "baffles[*].weir_cd_factor = 1" in text  # the weir field, never weir_cd
 
 
 _BENCH_SITE = """
@@ -197,13 +223,248 @@ def test_calibrate_needs_observations(east_cal):
 
 def test_scaled_fishway_leaves_unscaled_kinds_and_kc_untouched(east_cal):
     f = east_cal.fishway
-    same = scaled_fishway(f, {"orifice": 1.0})
-    assert same.baffles[0].weir_cd is None and same.exit.cd is None  # still Kindsvater–Carter
-    p0 = east_cal.solve(254 * FT, 215 * FT)
-    p1 = Ladder(same).solve(254 * FT, 215 * FT)
-    assert [q.water_level_m for q in p1.pools] == [q.water_level_m for q in p0.pools]
+    scaled = scaled_fishway(f, {"weir": 1.1, "exit": 0.9})
+    b = scaled.baffles[0]
+    assert b.weir_cd is None and b.weir_cd_factor == pytest.approx(1.1)  # still KC
+    assert scaled.exit.cd is None and scaled.exit.cd_factor == pytest.approx(0.9)
+    assert b.orifices == f.baffles[0].orifices and scaled.entrance == f.entrance
+    twice = scaled_fishway(scaled, {"weir": 1.1})  # an existing factor is multiplied
+    assert twice.baffles[0].weir_cd_factor == pytest.approx(1.21)
     with pytest.raises(ValueError, match="unknown opening kind"):
         scaled_fishway(f, {"sluice": 1.0})
+
+
+# A fishway with every kind of control and coefficient field: a fixed weir-with-orifice exit
+# (existing weir_cd_factor, two orifices of different cd), a weir with a given cd and a
+# cd_factor, a Kindsvater–Carter weir, an orifice baffle, a vertical slot, a two-notch
+# weir-with-orifice baffle and two entrance gates (one with a cd_factor). Invented.
+_MIXED_SITE = """
+[site]
+name = "Mixed flume"
+units = "si"
+
+[[fishways]]
+id = "mix"
+name = "Mixed flume"
+forebay_range = [10.1, 10.6]
+tailwater_range = [4.0, 5.5]
+
+[fishways.exit]
+type = "weir_orifice"
+crest = 10.0
+weir_width = 0.8
+weir_count = 2
+weir_cd_factor = 0.95
+orifices = [{ invert = 9.0, width = 0.3, height = 0.3, cd = 0.6 },
+            { invert = 9.2, width = 0.3, height = 0.3, cd = 0.65 }]
+pool = { id = "P1", floor = 8.0, length = 3.0, width = 2.0 }
+
+[[fishways.baffles]]
+type = "weir"
+id = "B1"
+crest = 9.5
+width = 0.8
+cd = 0.62
+cd_factor = 1.1
+pool = { id = "P2", floor = 7.5, length = 3.0, width = 2.0 }
+
+[[fishways.baffles]]
+type = "weir"
+id = "B2"
+crest = 9.0
+width = 0.8
+pool = { id = "P3", floor = 7.0, length = 3.0, width = 2.0 }
+
+[[fishways.baffles]]
+type = "orifice"
+id = "B3"
+orifices = [{ invert = 7.2, width = 0.8, height = 0.5 }]
+pool = { id = "P4", floor = 6.5, length = 3.0, width = 2.0 }
+
+[[fishways.baffles]]
+type = "vertical_slot"
+id = "B4"
+invert = 6.8
+slot_width = 0.5
+cd = 0.8
+pool = { id = "P5", floor = 6.0, length = 3.0, width = 2.0 }
+
+[[fishways.baffles]]
+type = "weir_orifice"
+id = "B5"
+crest = 6.6
+weir_width = 0.5
+weir_count = 2
+orifices = [{ invert = 6.0, width = 0.3, height = 0.3 }]
+pool = { id = "P6", floor = 5.0, length = 4.0, width = 2.0 }
+
+[fishways.entrance]
+gates = [{ id = "E1", width = 0.6, crest_range = [5.2, 6.5], cd_factor = 0.9 },
+         { id = "E2", width = 0.6, crest_range = [5.2, 6.5] }]
+
+[fishways.targets]
+pool_head_drop = { min = 0.05, max = 2.0 }
+entrance_head = { min = 0.05, max = 3.0 }
+max_power_density = 5000.0
+max_diffuser_velocity = { wall = 0.3, floor = 0.15 }
+min_attraction_flow = 0.0
+"""
+
+
+def _mixed() -> Ladder:
+    return Ladder(parse_site(tomllib.loads(_MIXED_SITE)).fishways[0])
+
+
+def _fishway(name: str) -> Fishway:
+    if name == "mixed":
+        return _mixed().fishway
+    if name == "bench":
+        return parse_site(tomllib.loads(_BENCH_SITE)).fishways[0]
+    return load_site().fishway(name)
+
+
+_ALL_ONE = dict.fromkeys(OPENING_KINDS, 1.0)
+_SOME = {"exit": 1.21, "weir": 1.07, "orifice": 0.91, "slot": 1.13, "entrance_gate": 0.88}
+
+
+def _points(ladder: Ladder, n: int = 4) -> list[tuple[float, float, dict[str, float]]]:
+    """Operating points spread over the forebay and tailwater ranges, gates mid-range."""
+    f = ladder.fishway
+    out = []
+    for i in range(n):
+        t = (i + 0.5) / n
+        fb = f.forebay_range[0] + t * (f.forebay_range[1] - f.forebay_range[0])
+        tw = f.tailwater_range[0] + (1 - t) * (f.tailwater_range[1] - f.tailwater_range[0])
+        out.append((fb, tw, ladder.default_settings()))
+    return out
+
+
+@pytest.mark.parametrize("name", ["east", "west", "bench", "mixed"])
+def test_multiplier_one_for_every_kind_gives_the_original_profile(name):
+    # the model form is kept: at multiplier 1 the calibrated fishway IS the site file's model
+    f = _fishway(name)
+    same = scaled_fishway(f, _ALL_ONE)
+    base, calibrated = Ladder(f), Ladder(same)
+    for fb, tw, s in _points(base):
+        p0, p1 = base.solve(fb, tw, s), calibrated.solve(fb, tw, s)
+        assert p1.ladder_flow_m3s == pytest.approx(p0.ladder_flow_m3s, abs=1e-12)
+        for a, b in zip(p0.pools, p1.pools, strict=True):
+            assert abs(a.water_level_m - b.water_level_m) <= 1e-12
+
+
+@pytest.mark.parametrize("name", ["east", "west", "bench", "mixed"])
+def test_every_opening_flow_scales_by_its_kind_multiplier(name):
+    # every equation of openings.py (Kindsvater–Carter × Villemonte, orifice, slot) is
+    # proportional to its coefficient, so scaling the fields must scale each opening's flow,
+    # free or drowned, by exactly the multiplier of its kind (the form is kept)
+    f = _fishway(name)
+    base, scaled = Ladder(f), Ladder(scaled_fishway(f, _SOME))
+    s = base.default_settings()
+    pairs = [(ctrl0, ctrl1, "exit" if j == 0 else None) for j, (ctrl0, ctrl1) in
+             enumerate(zip(base.controls(s), scaled.controls(s), strict=True))]
+    pairs.append((base.gates(s), scaled.gates(s), "entrance_gate"))
+    checked = 0
+    for ctrl0, ctrl1, kind in pairs:
+        for o0, o1 in zip(ctrl0, ctrl1, strict=True):
+            m = _SOME[kind or o0.kind]
+            for dz_up, dz_down in [(0.05, -1.0), (0.3, -1.0), (0.6, 0.2), (1.2, 0.9)]:
+                zu, zd = o0.low_m + dz_up, o0.low_m + dz_down
+                q0, q1 = o0.flow(zu, zd)[0], o1.flow(zu, zd)[0]
+                assert q0 > 0.0 and q1 == pytest.approx(m * q0, rel=1e-12)
+                checked += 1
+    assert checked >= 4 * (len(f.baffles) + 1 + len(f.entrance.gates))
+
+
+def test_mixed_site_paths_name_every_field():
+    # the reported site-file paths of each kind (an expected listing, by construction; the
+    # multipliers themselves are not determined here, see the next test)
+    f = _mixed().fishway
+    ladder = _mixed()
+    obs = _measure(Ladder(scaled_fishway(f, _SOME)),
+                   [Observation(i + 2, fb, tw, st, {}) for i, (fb, tw, st)
+                    in enumerate(_points(ladder, 6))], ("P1", "P2", "P3", "P4", "P5", "P6"))
+    result = calibrate(ladder, obs)
+    paths = {k.kind: [(c.path, c.before) for c in k.coefficients] for k in result.kinds}
+    assert paths == {
+        "exit": [("exit.weir_cd_factor", 0.95), ("exit.orifices[0].cd", 0.6),
+                 ("exit.orifices[1].cd", 0.65)],
+        "weir": [("baffles[B1].cd_factor", 1.1), ("baffles[B2].cd_factor", 1.0),
+                 ("baffles[B5].weir_cd_factor", 1.0)],
+        "orifice": [("baffles[B3, B5].orifices[*].cd", 0.61)],
+        "slot": [("baffles[B4].cd", 0.8)],
+        "entrance_gate": [("entrance.gates[E1].cd_factor", 0.9),
+                          ("entrance.gates[E2].cd_factor", 1.0)],
+    }
+    for k in result.kinds:
+        for c in k.coefficients:
+            assert c.after == pytest.approx(k.multiplier * c.before, rel=1e-15)
+
+
+_PATH = re.compile(r"(exit|baffles|entrance\.gates)(?:\[([^\]]+)\])?\."
+                   r"(?:orifices\[(\*|\d+)\]\.)?(\w+)")
+
+
+def _write(doc: dict, changes) -> dict:
+    """Apply reported changes to a parsed site-file document, reading only their paths."""
+    doc = copy.deepcopy(doc)
+    f = doc["fishways"][0]
+    for c in changes:
+        section, sel, orifice, key = _PATH.fullmatch(c.path).groups()
+        if section == "exit":
+            targets = [f["exit"]]
+        else:
+            items = f["baffles"] if section == "baffles" else f["entrance"]["gates"]
+            targets = items if sel == "*" else [x for x in items if x["id"] in sel.split(", ")]
+        assert len(targets) == len(c.elements)
+        for t in targets:
+            if orifice is None:
+                t[key] = c.after
+            else:
+                for o in t["orifices"] if orifice == "*" else [t["orifices"][int(orifice)]]:
+                    o[key] = c.after
+    return doc
+
+
+def test_writing_the_reported_fields_reproduces_the_fitted_model():
+    # the report must say exactly what to write: apply its paths to the site file, reload it
+    # and the profile must be that of the fitted model. Without auxiliary water, scaling every
+    # coefficient alike scales every flow and leaves every level unchanged, so levels fix only
+    # ratios: the exit (which then sets the flow) is held at its true value of 1.
+    ladder = _mixed()
+    true = {**_SOME, "exit": 1.0}
+    truth = Ladder(scaled_fishway(ladder.fishway, true))
+    points = _points(ladder, 6)
+    obs = _measure(truth, [Observation(i + 2, fb, tw, st, {})
+                           for i, (fb, tw, st) in enumerate(points)],
+                   ("P1", "P2", "P3", "P4", "P5", "P6"))
+    result = calibrate(ladder, obs, kinds=["weir", "orifice", "slot", "entrance_gate"])
+    assert result.success and result.rms_after_m < 1e-8
+    assert result.multipliers == pytest.approx(true, rel=1e-7)  # self-consistency
+    doc = _write(tomllib.loads(_MIXED_SITE), [c for k in result.kinds for c in k.coefficients])
+    written = Ladder(parse_site(doc).fishways[0])
+    fitted = Ladder(result.fishway)
+    for fb, tw, s in points:
+        p0, p1 = fitted.solve(fb, tw, s), written.solve(fb, tw, s)
+        for a, b in zip(p0.pools, p1.pools, strict=True):
+            assert abs(a.water_level_m - b.water_level_m) <= 1e-12
+
+
+def test_id_ranges_and_out_of_schema_values(east_cal):
+    # B39 given a different factor: the 38 repeated baffles are named as a range; a fit that
+    # would push a factor above the site file's 2.0 is warned about
+    f = east_cal.fishway
+    b39 = f.baffles[-1].model_copy(update={"weir_cd_factor": 1.6})
+    odd = f.model_copy(update={"baffles": [*f.baffles[:-1], b39]})
+    truth = Ladder(scaled_fishway(odd, {"weir": 1.3}))
+    result = calibrate(Ladder(odd), _measure(truth, _conditions(east_cal)), kinds=["weir"])
+    weir = next(k for k in result.kinds if k.kind == "weir")
+    assert weir.multiplier == pytest.approx(1.3, rel=1e-6)
+    assert [c.path for c in weir.coefficients] == ["baffles[B01 … B38].weir_cd_factor",
+                                                   "baffles[B39].weir_cd_factor"]
+    assert weir.coefficients[1].assignment == "baffles[B39].weir_cd_factor = 2.08"
+    assert any("baffles[B39].weir_cd_factor = 2.08: the site file would reject it" in w
+               for w in result.warnings), result.warnings
+    assert "named by id as loaded" in format_calibration(result, Ladder(odd), "si")
 
 
 # -- reading observations --------------------------------------------------------------------
