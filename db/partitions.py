@@ -133,9 +133,15 @@ def ensure_partitions_ms(engine: Engine, start_ms: int, end_ms: int) -> list[str
     return created
 
 
+#: Advisory lock key serialising partition creation (CREATE TABLE IF NOT EXISTS is not
+#: safe against a concurrent creator of the same table on PostgreSQL).
+_PARTITION_LOCK_KEY = 0x46495348  # "FISH"
+
+
 def _create_months(engine: Engine, months: list[tuple[int, int]]) -> list[str]:
     created = []
     with engine.begin() as conn:
+        conn.execute(sa.text("SELECT pg_advisory_xact_lock(:k)"), {"k": _PARTITION_LOCK_KEY})
         have = existing_partitions(conn)
         for ym in months:
             if ym in have:
@@ -163,6 +169,8 @@ def drop_partitions_before(engine: Engine, cutoff: datetime) -> list[str]:
     for ym, name in sorted(existing_partitions(engine).items()):
         if month_bounds_ms(*ym)[1] <= cutoff_ms:
             with engine.begin() as conn:
+                conn.execute(sa.text("SELECT pg_advisory_xact_lock(:k)"),
+                             {"k": _PARTITION_LOCK_KEY})
                 conn.exec_driver_sql(f"DROP TABLE IF EXISTS {name}")
             dropped.append(name)
     return dropped
