@@ -55,6 +55,7 @@ def _si(kind: str) -> BeforeValidator:
 
 
 Meters = Annotated[float, _si("length"), Field(ge=0)]
+PositiveMeters = Annotated[float, _si("length"), Field(gt=0)]
 FlowM3s = Annotated[float, _si("flow"), Field(ge=0)]
 SpeedMS = Annotated[float, _si("velocity"), Field(ge=0)]
 PowerWm3 = Annotated[float, _si("power_density"), Field(ge=0)]
@@ -220,7 +221,7 @@ class TdgHigh(Rule):
 
 # -- equipment and debris ----------------------------------------------------------------------
 class TrashRackDpHigh(Rule):
-    limit_m: Positive = 0.15  # common practice (debris builds up; set per site)
+    limit_m: PositiveMeters = 0.15  # common practice (debris builds up; set per site)
     deadband_m: Meters = 0.02  # common practice
     on_delay_s: Seconds = 300.0  # common practice
     off_delay_s: Seconds = 120.0  # common practice
@@ -228,14 +229,14 @@ class TrashRackDpHigh(Rule):
 
 
 class PicketDpHigh(TrashRackDpHigh):
-    limit_m: Positive = 0.09  # common practice (about 0.3 ft; set per site)
+    limit_m: PositiveMeters = 0.09  # common practice (about 0.3 ft; set per site)
 
 
 class ActuatorMismatch(Rule):
     """An actuator's position differs from its last logged setting by more than a tolerance
     (by setting kind); one alarm per actuator."""
 
-    tolerance_m: Positive = 0.03  # common practice (about 0.1 ft)
+    tolerance_m: PositiveMeters = 0.03  # common practice (about 0.1 ft)
     tolerance_pct: Positive = 5.0  # common practice
     tolerance_pumps: Positive = 0.5  # one pump: any difference in whole pumps
     on_delay_s: Seconds = 120.0  # common practice (gate and valve travel time)
@@ -285,7 +286,7 @@ class FeedComms(Rule):
 class GaugeDisagree(Rule):
     """Redundant gauges of one pool differ by more than ``limit_m``."""
 
-    limit_m: Positive = 0.03  # common practice (about 0.1 ft)
+    limit_m: PositiveMeters = 0.03  # common practice (about 0.1 ft)
     deadband_m: Meters = 0.01  # common practice
     on_delay_s: Seconds = 600.0  # common practice
     off_delay_s: Seconds = 120.0  # common practice
@@ -297,7 +298,7 @@ class AdjustmentDue(Rule):
     """The recommended settings differ from the current ones by more than a threshold (by
     setting kind) for longer than the on-delay; one alarm per fishway."""
 
-    threshold_m: Positive = 0.03  # common practice (about 0.1 ft)
+    threshold_m: PositiveMeters = 0.03  # common practice (about 0.1 ft)
     threshold_pct: Positive = 5.0  # common practice
     threshold_pumps: Positive = 0.5  # any change in whole pumps
     on_delay_s: Seconds = 900.0  # common practice
