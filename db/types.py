@@ -9,7 +9,8 @@ Two representations of an instant are used:
   as UTC-aware datetimes on SQLite as well as PostgreSQL.
 
 Query results are pandas DataFrames indexed by a tz-aware UTC ``DatetimeIndex`` named
-``ts`` (:func:`ms_to_index`).
+``ts`` (:func:`ms_to_index`), of millisecond unit (``datetime64[ms, UTC]``): ``.asi8``
+gives epoch milliseconds; use ``.as_unit("ns")`` where nanoseconds are expected.
 
 >>> from datetime import datetime, timezone
 >>> to_epoch_ms(datetime(2026, 1, 1, tzinfo=timezone.utc))
