@@ -36,6 +36,10 @@ __all__ = ["AuxState", "ControlState", "Criterion", "PoolState", "Profile", "sol
 LEVEL_TOL_M = 1e-9
 """Convergence of the profile: the computed forebay matches the given one to this [m]."""
 
+NO_FLOW_M3S = 1e-9
+"""A converged ladder flow at or below this (a millilitre a second: the forebay stands exactly
+at an upper crest) is reported as the no-flow state."""
+
 
 # The per-element records are NamedTuples: immutable like the frozen Profile that holds them,
 # and cheap to build forty at a time (this is on the solver's path).
@@ -264,7 +268,8 @@ def solve_profile(ladder: Ladder, forebay_m: float, tailwater_m: float,
             x_new = 0.5 * (lo + hi) if hi < math.inf else 2.0 * x + 1e-3
         x = x_new
     assert march is not None
-    if march.deficit > 0.0 or abs(march.forebay_needed - forebay_m) > 1e-6:
+    if (march.deficit > 0.0 or abs(march.forebay_needed - forebay_m) > 1e-6
+            or march.inflow[0] <= NO_FLOW_M3S):
         # the iteration closed on the jump where flow over the exit would start: no flow
         return _rest_state(ladder, forebay_m, tailwater_m, s, ctrl, gates, aux_by_pool,
                            temperature_c, guess)

@@ -8,8 +8,15 @@ from __future__ import annotations
 import os
 
 import pytest
+from hypothesis import settings
 
 IN_CI = os.environ.get("CI", "").lower() in {"1", "true", "yes"}
+
+# CI runs the property tests on a fixed sequence of examples (a red CI run must be repeatable);
+# a developer's run explores new examples each time. FISHWAY_HYPOTHESIS=stress explores more.
+settings.register_profile("ci", derandomize=True, print_blob=True)
+settings.register_profile("stress", max_examples=2000, deadline=None, print_blob=True)
+settings.load_profile(os.environ.get("FISHWAY_HYPOTHESIS", "ci" if IN_CI else "default"))
 
 
 @pytest.hookimpl(hookwrapper=True)

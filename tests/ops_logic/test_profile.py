@@ -47,7 +47,7 @@ def assert_continuity(ladder: Ladder, p) -> None:
 
 def assert_monotone(p) -> None:
     levels = [p.forebay_m] + [x.water_level_m for x in p.pools] + [p.tailwater_m]
-    assert all(a >= b - 1e-9 for a, b in itertools.pairwise(levels))
+    assert all(a >= b - 2 * LEVEL_TOL_M for a, b in itertools.pairwise(levels))
 
 
 @pytest.mark.parametrize("fishway", ["east", "west"])
