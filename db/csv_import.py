@@ -37,7 +37,7 @@ parsing and once at the end of the file.
 2
 >>> import_csv(eng, load_site(), path, skip_bad_rows=True).stored   # again: nothing new
 0
->>> eng.dispose()
+>>> eng.dispose(); import shutil; shutil.rmtree(path.parent)
 """
 from __future__ import annotations
 
@@ -117,10 +117,9 @@ def _lines(path: Path, counter: list[int], errors: list[RowError]) -> Iterator[s
     with open(path, "rb") as fh:
         for lineno, raw in enumerate(fh, 1):
             counter[0] += len(raw)
-            if lineno == 1 and raw.startswith(b"\xef\xbb\xbf"):
-                raw = raw[3:]
+            data = raw[3:] if lineno == 1 and raw.startswith(b"\xef\xbb\xbf") else raw
             try:
-                yield raw.decode("utf-8")
+                yield data.decode("utf-8")
             except UnicodeDecodeError:
                 errors.append(RowError(lineno, "not UTF-8 text"))
                 yield "\n"

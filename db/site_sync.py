@@ -5,8 +5,9 @@
 ``description``) and each tag of :func:`ops_logic.tags.site_tags` exist, in one
 transaction, and returns the tag ids by tag name. It is idempotent: run again on the same
 site it changes nothing; run after the site file changed it updates each existing tag's
-quantity, unit, source, address, poll period, role, pool, setting and actuator (a tag is never deleted or moved to another
-fishway: that raises ``ValueError``, because its readings would change meaning).
+quantity, unit, source, address, poll period, role, pool, setting and actuator (a tag is
+never deleted or moved to another fishway: that raises ``ValueError``, because its readings
+would change meaning).
 
 Mapping of a :class:`~ops_logic.tags.TagDef` to a ``tags`` row:
 

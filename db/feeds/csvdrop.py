@@ -48,6 +48,7 @@ A missing or unreadable folder raises :class:`~db.feeds.base.FeedError`; the nex
 after it is back works again. The feed keeps no connection; ``close`` does nothing.
 
 >>> import tempfile, os, pathlib
+>>> from datetime import UTC, datetime
 >>> from ops_logic.site import load_site
 >>> from ops_logic.tags import site_tags
 >>> tags = [t for t in site_tags(load_site()) if t.name.startswith("east.fore")]
@@ -60,6 +61,7 @@ after it is back works again. The feed keeps no connection; ``close`` does nothi
 [('east.forebay_level', '2026-05-04T14:00:00+00:00', 77.41)]
 >>> [p.name for p in feed.commit()], sorted(p.name for p in (folder / "done").iterdir())
 (['a.csv'], ['a.csv'])
+>>> import shutil; shutil.rmtree(folder)
 """
 from __future__ import annotations
 
@@ -69,14 +71,14 @@ import os
 import time
 from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass
-from datetime import UTC, datetime
+from datetime import datetime
 from pathlib import Path
 
 from db.csv_import import ParsedCsv, parse_readings_csv
 from db.feeds.base import Feed, FeedError, FeedReading
 from ops_logic.tags import TagDef
 
-__all__ = ["CsvDropFeed", "DONE_DIR", "REJECTED_DIR"]
+__all__ = ["DONE_DIR", "REJECTED_DIR", "CsvDropFeed"]
 
 _log = logging.getLogger(__name__)
 

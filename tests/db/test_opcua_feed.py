@@ -248,7 +248,7 @@ def test_server_restart_reads_again_after_backoff(server, tags):
         server.write({1000: 4.0, 1001: 5.0, 1002: 6.0}, T0 + timedelta(minutes=1))
         clock.now += 4.9
         start = time.monotonic()
-        with pytest.raises(FeedError, match="next attempt in 0.1 s"):
+        with pytest.raises(FeedError, match=r"next attempt in 0\.1 s"):
             feed.read(tags, datetime.now(UTC))  # the server is back, the back-off is not over
         assert time.monotonic() - start < 0.05
         clock.now += 0.2
