@@ -149,6 +149,9 @@ def register(subparsers: Any, common: argparse.ArgumentParser) -> None:
                               "settings, then print the advisory recommendation from there "
                               "(rate limits apply).")
     p.set_defaults(handler=_demo)
+    from dashboard import commands
+
+    commands.register(subparsers, common)
 
 
 if __name__ == "__main__":
