@@ -1,0 +1,123 @@
+"""Fixtures of the dashboard tests: a seeded database, accounts, a live server, a browser.
+
+The database holds a few hours of simulated history of the demo site (``simulator``), so
+pages have something to show. The live server is the real app served by waitress on a free
+loopback port, in a thread. Browser tests drive Debian's Chromium through Playwright (no
+browser download: ``/usr/bin/chromium``); screenshots go to ``tests/artifacts/screens/``
+(not committed). Without Chromium the browser tests skip — which CI turns into a failure.
+"""
+
+from __future__ import annotations
+
+import os
+import shutil
+import socket
+import threading
+import time
+from datetime import UTC, datetime, timedelta
+from pathlib import Path
+
+import pytest
+
+os.environ.setdefault("FISHWAY_INSECURE_COOKIES", "1")  # plain-http test server
+
+ACCOUNTS = {"op1": ("operator", "operator-pass-1"), "sup1": ("supervisor", "supervisor-pass-1"),
+            "view1": ("viewer", "viewer-pass-1")}
+SCREENS = Path(__file__).resolve().parents[1] / "artifacts" / "screens"
+CHROMIUM = shutil.which("chromium") or "/usr/bin/chromium"
+SEED_END = datetime(2026, 7, 15, 12, 0, tzinfo=UTC)
+SEED_HOURS = 6
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+@pytest.fixture(scope="session")
+def demo_site():
+    from ops_logic.site import load_site
+
+    return load_site()
+
+
+@pytest.fixture(scope="session")
+def seeded_engine(tmp_path_factory, demo_site):
+    """A migrated SQLite database with SEED_HOURS of 60-second simulated readings."""
+    from db.engine import make_engine
+    from db.migrate import upgrade
+    from db.readings import store_batch
+    from db.site_sync import sync_site
+    from dashboard.auth import create_user
+    from simulator.history import generate_history
+    from simulator.plant import Plant
+
+    path = tmp_path_factory.mktemp("dash") / "fishway.sqlite"
+    engine = make_engine(sqlite_path=path)
+    upgrade(engine)
+    ids = sync_site(engine, demo_site)
+    start = SEED_END - timedelta(hours=SEED_HOURS)
+    plant = Plant(demo_site, start=start, seed=7)
+    tags = list(ids)
+    for batch in generate_history(plant, tags, start, SEED_END, step_s=60.0):
+        store_batch(engine, [(ids[r.tag], r.ts, r.value, 1 if r.source_ok else 9)
+                             for r in batch])
+    for name, (role, password) in ACCOUNTS.items():
+        create_user(engine, name, role, password)
+    yield engine
+    engine.dispose()
+
+
+@pytest.fixture(scope="session")
+def live_server(seeded_engine, demo_site):
+    """Base URL of the dashboard served by waitress in a thread."""
+    from waitress.server import create_server
+
+    from dashboard.app import create_app
+
+    app = create_app(demo_site, seeded_engine, secret_key="test-secret")
+    port = _free_port()
+    server = create_server(app.server, host="127.0.0.1", port=port, threads=4)
+    thread = threading.Thread(target=server.run, daemon=True)
+    thread.start()
+    deadline = time.monotonic() + 10
+    while time.monotonic() < deadline:
+        try:
+            with socket.create_connection(("127.0.0.1", port), timeout=0.5):
+                break
+        except OSError:
+            time.sleep(0.05)
+    yield f"http://127.0.0.1:{port}"
+    server.close()
+
+
+@pytest.fixture(scope="session")
+def browser_type_launch_args(browser_type_launch_args):
+    if not Path(CHROMIUM).exists():
+        pytest.skip("Chromium is not installed (apt-get install chromium chromium-driver)")
+    return {**browser_type_launch_args, "executable_path": CHROMIUM,
+            "args": ["--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
+                     "--disable-background-networking", "--disable-component-update",
+                     "--disable-sync"]}
+
+
+@pytest.fixture(scope="session")
+def screens() -> Path:
+    SCREENS.mkdir(parents=True, exist_ok=True)
+    return SCREENS
+
+
+@pytest.fixture
+def sign_in(page, live_server):
+    """``sign_in(name)`` signs ``page`` in as one of ACCOUNTS and returns it."""
+
+    def do(name: str = "op1"):
+        page.goto(f"{live_server}/login")
+        page.fill("input[name=name]", name)
+        page.fill("input[name=password]", ACCOUNTS[name][1])
+        page.click("button[type=submit]")
+        page.wait_for_load_state("networkidle")
+        return page
+
+    return do
