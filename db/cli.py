@@ -56,7 +56,6 @@ class _ProgressBar:
     def __init__(self, width: int = 30) -> None:
         self.width = width
         self._last = 0.0
-        self._drawn = False
 
     def __call__(self, rows: int, done: int, total: int) -> None:
         now = time.monotonic()
@@ -65,10 +64,9 @@ class _ProgressBar:
         self._last = now
         frac = done / total if total else 1.0
         bar = "#" * int(self.width * frac)
-        end = "\n" if done >= total else ""
-        print(f"\rimport-csv: [{bar:<{self.width}}] {100 * frac:5.1f}% {rows:,} rows",
-              end=end, file=sys.stderr, flush=True)
-        self._drawn = done < total
+        last = done >= total
+        print(f"\rimport-csv: [{bar:<{self.width}}] {100 * frac:5.1f}% {rows:,} rows"
+              + (" read, storing…\n" if last else ""), end="", file=sys.stderr, flush=True)
 
 
 def _print_errors(file: Path, report: ImportReport) -> None:

@@ -199,6 +199,10 @@ def _status_name(code: ua.StatusCode) -> str:
         return f"0x{code.value:08X}"
 
 
+async def _close_socket(client: Client) -> None:
+    client.disconnect_socket()
+
+
 class OpcUaFeed(Feed):
     """Feed reading an OPC UA server; see the module docstring for the behaviour.
 
@@ -268,11 +272,16 @@ class OpcUaFeed(Feed):
 
     def _drop_client(self) -> None:
         client, self._client, self._history = self._client, None, None
-        if client is not None:
+        if client is None:
+            return
+        try:  # a live server answers CloseSession in milliseconds; a dead one never does
+            self._run(asyncio.wait_for(client.disconnect(), min(self.timeout_s, 1.0)))
+        except Exception as exc:
+            _log.debug("feed %s: disconnect: %r; closing the socket", self.id, exc)
             try:
-                self._run(asyncio.wait_for(client.disconnect(), self.timeout_s))
-            except Exception as exc:  # the link is already gone: nothing more to release
-                _log.debug("feed %s: disconnect: %r", self.id, exc)
+                self._run(_close_socket(client))
+            except Exception as exc2:  # nothing more can be released
+                _log.debug("feed %s: closing the socket: %r", self.id, exc2)
 
     def _fail(self, what: str, exc: BaseException | str) -> FeedError:
         self._drop_client()

@@ -365,3 +365,14 @@ def test_cli_refuses_a_database_without_schema_then_db_upgrade_fixes_it(tmp_path
     assert fishway(["db", "upgrade", "--database", url]) == 0
     assert "already current" in capsys.readouterr().out
     assert fishway(["import-csv", str(path), "--database", url]) == 0
+
+
+def test_cli_progress_bar_only_on_a_terminal(tmp_path, db_url, capsys, monkeypatch):
+    import db.cli
+    path = write(tmp_path / "a.csv", *MIXED[:4])
+    monkeypatch.setattr(db.cli, "PROGRESS_MIN_BYTES", 0)
+    assert fishway(["import-csv", str(path), "--database", db_url]) == 0
+    assert capsys.readouterr().err == ""  # stderr is not a terminal here: no bar
+    monkeypatch.setattr("sys.stderr.isatty", lambda: True)
+    assert fishway(["import-csv", str(path), "--database", db_url]) == 0
+    assert capsys.readouterr().err.endswith("100.0% 4 rows read, storing…\n")

@@ -102,6 +102,48 @@ class OpcUaTestServer:
         self._loop = None
 
 
+class FreezingProxy:
+    """A loopback TCP proxy that can go silent: while frozen it swallows every byte both ways
+    and keeps the sockets open (a cable pulled somewhere: no reset, no answer)."""
+
+    def __init__(self, upstream_port: int) -> None:
+        self.upstream = ("127.0.0.1", upstream_port)
+        self.frozen = threading.Event()
+        self._listener = socket.create_server(("127.0.0.1", 0))
+        self._listener.settimeout(0.2)
+        self.port = self._listener.getsockname()[1]
+        self._stop = threading.Event()
+        self._sockets: list[socket.socket] = []
+        threading.Thread(target=self._accept, daemon=True).start()
+
+    def _accept(self) -> None:
+        while not self._stop.is_set():
+            try:
+                down, _ = self._listener.accept()
+            except TimeoutError:
+                continue
+            except OSError:
+                return
+            up = socket.create_connection(self.upstream)
+            self._sockets += [down, up]
+            for src, dst in ((down, up), (up, down)):
+                threading.Thread(target=self._pump, args=(src, dst), daemon=True).start()
+
+    def _pump(self, src: socket.socket, dst: socket.socket) -> None:
+        try:
+            while data := src.recv(65536):
+                if not self.frozen.is_set():
+                    dst.sendall(data)
+        except OSError:
+            pass
+
+    def close(self) -> None:
+        self._stop.set()
+        self._listener.close()
+        for sock in self._sockets:
+            sock.close()
+
+
 @pytest.fixture(scope="module")
 def shared_server():
     """One server for the tests that do not stop it (each writes its own time window)."""
@@ -223,6 +265,27 @@ def test_silent_server_times_out_within_the_bound(tags):
             assert time.monotonic() - start < 0.5 + 2.5  # timeout_s plus the call margin
         finally:
             feed.close()
+
+
+def test_silent_link_mid_session_fails_within_the_timeout_then_recovers(shared_server, tags):
+    proxy = FreezingProxy(shared_server.port)
+    clock = FakeClock()
+    feed = fast_feed(f"opc.tcp://127.0.0.1:{proxy.port}", timeout_s=0.5, clock=clock)
+    try:
+        shared_server.write({1000: 5.0, 1001: 6.0, 1002: 7.0}, T0 + timedelta(minutes=2))
+        assert [r.value for r in feed.read(tags, datetime.now(UTC))] == [5.0, 6.0, 7.0]
+        proxy.frozen.set()
+        start = time.monotonic()
+        with pytest.raises(FeedError, match="reading from"):
+            feed.read(tags, datetime.now(UTC))
+        elapsed = time.monotonic() - start
+        assert 0.4 < elapsed < 0.5 + 2.5  # the request timeout, not a hang
+        proxy.frozen.clear()
+        clock.now += 60  # past the back-off
+        assert [r.value for r in feed.read(tags, datetime.now(UTC))] == [5.0, 6.0, 7.0]
+    finally:
+        feed.close()
+        proxy.close()
 
 
 class FakeClock:
