@@ -45,11 +45,11 @@ def demo_site():
 @pytest.fixture(scope="session")
 def seeded_engine(tmp_path_factory, demo_site):
     """A migrated SQLite database with SEED_HOURS of 60-second simulated readings."""
+    from dashboard.auth import create_user
     from db.engine import make_engine
     from db.migrate import upgrade
     from db.readings import store_batch
     from db.site_sync import sync_site
-    from dashboard.auth import create_user
     from simulator.history import generate_history
     from simulator.plant import Plant
 
