@@ -158,7 +158,7 @@ class TempHigh(Rule):
 
     priority: Priority = 2  # common practice
     basis: Literal["7dadm", "instantaneous"] = "7dadm"  # the criterion is a 7DADM (from memory)
-    limit_c: float | None = None
+    limit_c: Annotated[float, Field(gt=0, lt=40)] | None = None
     deadband_c: Annotated[float, Field(ge=0)] = 0.2  # common practice
     on_delay_s: Seconds = 600.0  # common practice
     off_delay_s: Seconds = 600.0  # common practice
@@ -169,7 +169,8 @@ class TempHighHigh(Rule):
     """Migration blocked: the water temperature reading above the blocking threshold."""
 
     priority: Priority = 1  # harms or blocks fish
-    limit_c: float = TEMPERATURE_BLOCKING_C  # McCullough 1999 (from memory)
+    limit_c: Annotated[float, Field(gt=0, lt=40)] = TEMPERATURE_BLOCKING_C  # McCullough
+    # 1999 (from memory)
     deadband_c: Annotated[float, Field(ge=0)] = 0.5  # common practice
     on_delay_s: Seconds = 600.0  # common practice
     off_delay_s: Seconds = 600.0  # common practice

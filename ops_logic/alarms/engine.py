@@ -12,9 +12,10 @@ One evaluation (:meth:`AlarmEngine.evaluate`):
    if its condition is still there);
 2. every rule is judged (:func:`~ops_logic.alarms.rules.evaluate_rules`) with its deadband;
 3. causes are grouped: while a feed's communications have failed, the stale-tag and
-   sensor-quality alarms of its tags are suppressed as children of the feed alarm (one
-   annunciation for one cause); a tripped pump station's actuator mismatch is grouped under the
-   trip. A child stays grouped until it clears, so the feed's return raises no burst;
+   sensor-quality alarms of its tags whose condition is present are suppressed by design as
+   children of the feed alarm (``parent`` names it): one annunciation for one cause. A tripped
+   pump station's actuator mismatch is grouped under the trip the same way. A child stays
+   grouped until it clears, so the feed's return raises no burst;
 4. the on/off delays run; activation and return to normal move each alarm's state;
 5. alarm flood (EEMUA 191 [EEMUA191]): more than 10 annunciations within 10 minutes starts a
    flood, fewer than 5 in the last 10 minutes ends it; :attr:`AlarmEngine.flood` gives the
@@ -93,7 +94,9 @@ class EngineState:
 
     def to_dict(self) -> dict[str, Any]:
         """JSON-ready dict (times as ISO 8601 strings)."""
-        iso = (lambda t: None if t is None else t.isoformat())
+        def iso(t: datetime | None) -> str | None:
+            return None if t is None else t.isoformat()
+
         return {"alarms": {k: r.to_dict() for k, r in self.alarms.items()},
                 "modes": dict(self.modes), "overrides": self.overrides,
                 "annunciations": [[t.isoformat(), k] for t, k in self.annunciations],
@@ -103,7 +106,9 @@ class EngineState:
     @classmethod
     def from_dict(cls, data: dict[str, Any]) -> EngineState:
         """Inverse of :meth:`to_dict`."""
-        t = (lambda s: None if s is None else datetime.fromisoformat(s))
+        def t(text: str | None) -> datetime | None:
+            return None if text is None else datetime.fromisoformat(text)
+
         return cls({k: AlarmRecord.from_dict(r) for k, r in data.get("alarms", {}).items()},
                    dict(data.get("modes", {})), data.get("overrides", {}),
                    [(datetime.fromisoformat(ts), k) for ts, k in data.get("annunciations", [])],
@@ -173,6 +178,9 @@ class AlarmEngine:
         unknown = set(inputs.fishways) - set(self._fishway_ids)
         if unknown:
             raise ValueError(f"inputs name unknown fishway(s): {', '.join(sorted(unknown))}")
+        unknown = set(inputs.feeds) - set(self._feed_owner)
+        if unknown:
+            raise ValueError(f"inputs name unknown feed(s): {', '.join(sorted(unknown))}")
         events: list[AlarmEvent] = []
         for fid, fin in inputs.fishways.items():
             if fin.mode is not None and fin.mode != st.modes.get(fid, "operating"):
@@ -390,7 +398,9 @@ class AlarmEngine:
                      now: datetime, who: str, why: str = "") -> list[AlarmEvent]:
         """A supervisor's edit of a rule parameter (a limit, deadband, delay or priority):
         validated as in the site file, kept in the engine state, and recorded as a
-        ``limit_changed`` event with the old and new value."""
+        ``limit_changed`` event (``priority_changed`` for the priority) with the old and new
+        value. The event's key is ``<rule>@<fishway>``: the rule as configured for that
+        fishway (for ``feed_comms``, the fishway whose settings govern the feed)."""
         now, who = _aware(now), self._who(who)
         old_settings = self.settings(fishway_id)
         old = getattr(old_settings.rule(rule), parameter, None)
@@ -404,8 +414,12 @@ class AlarmEngine:
         for k, r in self.state.alarms.items():
             if r.rule == rule and r.fishway_id == fishway_id:
                 self.state.alarms[k] = replace(r, priority=priority)
-        num = (lambda x: float(x) if isinstance(x, int | float) else None)
-        return [AlarmEvent(now, key, rule, fishway_id, EventKind.LIMIT_CHANGED.value, state,
+        def num(x: object) -> float | None:
+            return float(x) if isinstance(x, int | float) else None
+
+        kind = EventKind.PRIORITY_CHANGED if parameter == "priority" else \
+            EventKind.LIMIT_CHANGED
+        return [AlarmEvent(now, key, rule, fishway_id, kind.value, state,
                            state, priority, who=who,
                            why=why or f"{rule}.{parameter}: {old!r} → {new!r}",
                            old_value=num(old), new_value=num(new))]

@@ -20,7 +20,7 @@ from datetime import datetime
 from ops_logic.profile import Profile
 from ops_logic.recommend import Recommendation
 
-__all__ = ["AlarmInputs", "FeedStatus", "FishwayInputs", "TagValue", "USABLE_FLAGS"]
+__all__ = ["USABLE_FLAGS", "AlarmInputs", "FeedStatus", "FishwayInputs", "TagValue"]
 
 USABLE_FLAGS = frozenset({1, 2})
 """QARTOD flags whose readings the rules use: PASS and NOT_EVALUATED (IOOS flags manual v1.2,

@@ -182,8 +182,8 @@ def alarm_intervals(times_s: Sequence[float], values: Sequence[float], *,
     out: list[tuple[float, float | None]] = []
     state = DelayState()
     previous = -math.inf
-    for t, v in zip(times_s, values, strict=True):
-        t = _finite("time", t)
+    for t_given, v in zip(times_s, values, strict=True):
+        t = _finite("time", t_given)
         if not t > previous:
             raise ValueError("times_s must be strictly increasing")
         previous = t

@@ -34,7 +34,7 @@ from __future__ import annotations
 import math
 from dataclasses import asdict, dataclass, fields, replace
 from datetime import datetime
-from enum import Enum
+from enum import StrEnum
 from typing import Any
 
 __all__ = [
@@ -54,7 +54,7 @@ PRIORITY_NAMES = {1: "high", 2: "medium", 3: "low"}
 """Priority levels: 1 high, 2 medium, 3 low (names as stored in ``db.models.ALARM_PRIORITIES``)."""
 
 
-class AlarmState(str, Enum):
+class AlarmState(StrEnum):
     """ISA-18.2 alarm states (values as in ``db.models.ALARM_STATES``)."""
 
     NORMAL = "normal"
@@ -70,7 +70,7 @@ ANNUNCIATED_STATES = frozenset({AlarmState.UNACK, AlarmState.ACKED, AlarmState.R
 """States in which an alarm is shown to the operator."""
 
 
-class Trigger(str, Enum):
+class Trigger(StrEnum):
     """What moves an alarm: the process (activate, clear) or a person or design (the rest)."""
 
     ACTIVATE = "activate"
@@ -84,7 +84,7 @@ class Trigger(str, Enum):
     RETURN_TO_SERVICE = "return_to_service"
 
 
-class EventKind(str, Enum):
+class EventKind(StrEnum):
     """Kinds of alarm event (the first ten as in ``db.models.ALARM_EVENT_KINDS``)."""
 
     RAISED = "raised"
@@ -287,7 +287,8 @@ class AlarmEvent:
     def db_fields(self) -> dict[str, Any]:
         """Arguments for ``db.alarms.record_alarm_event`` (except the database ids of the
         fishway and tag, which the caller resolves from ``fishway_id`` and ``tag``)."""
-        value = self.new_value if self.kind == EventKind.LIMIT_CHANGED.value else self.value
+        changed = (EventKind.LIMIT_CHANGED.value, EventKind.PRIORITY_CHANGED.value)
+        value = self.new_value if self.kind in changed else self.value
         return {"key": self.key, "ts": self.ts, "kind": self.kind, "state": self.state,
                 "priority": self.priority_name, "rule": self.rule,
                 "value": value if value is not None and math.isfinite(value) else None,

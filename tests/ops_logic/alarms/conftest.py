@@ -70,8 +70,9 @@ class Plant:
             if name in values:
                 v = values[name]
                 ok = (c.min is None or v >= c.min) and (c.max is None or v <= c.max)
-                c = Criterion(c.name, v, c.min, c.max, ok, c.unit, c.kind)
-            crit.append(c)
+                crit.append(Criterion(c.name, v, c.min, c.max, ok, c.unit, c.kind))
+            else:
+                crit.append(c)
         return replace(self.profile, criteria=tuple(crit))
 
     def inputs(self, now: datetime, *, values: dict[str, float] | None = None,

@@ -170,6 +170,7 @@ def test_limit_change_is_an_event_with_old_and_new_values(engine, plant, at):
         engine.change_limit("t1", "do_low", "limit_mgl", 5.5, at(9), "supervisor1")
     ev = engine.change_limit("t1", "do_low", "priority", 1, at(9), "supervisor1")
     assert engine.state.alarms["do_low@t1"].priority == 1 and ev[0].priority == 1
+    assert (ev[0].kind, ev[0].old_value, ev[0].new_value) == ("priority_changed", 2.0, 1.0)
 
 
 def test_feed_failure_over_30_tags_is_one_annunciation(engine, plant, at):
@@ -242,6 +243,8 @@ def test_unknown_fishway_or_mode_is_refused(engine, plant, at):
     from ops_logic.alarms.inputs import AlarmInputs
     with pytest.raises(ValueError, match="unknown fishway"):
         engine.evaluate(at(1), AlarmInputs(fishways={"t9": plant.inputs(at(1)).fishways["t1"]}))
+    with pytest.raises(ValueError, match="unknown feed"):
+        engine.evaluate(at(1), AlarmInputs(feeds={"plc": plant.inputs(at(1)).feeds["plant"]}))
     with pytest.raises(ValueError, match="unknown fishway mode 'dry'"):
         engine.set_fishway_mode("t1", "dry", at(1), "operator1")
 
@@ -262,7 +265,8 @@ def test_hand_case_hovering_reading_raises_once_through_the_engine(engine, plant
     ev = []
     for m, do in enumerate(readings, start=1):
         ev += engine.evaluate(at(m), plant.inputs(at(m), values={"t1.do": do}))
-    assert kinds(ev, "do_low@t1") == [("raised", "unacknowledged"), ("cleared", "rtn_unacknowledged")]
+    assert kinds(ev, "do_low@t1") == [("raised", "unacknowledged"),
+                                      ("cleared", "rtn_unacknowledged")]
     assert [e.ts for e in ev if e.key == "do_low@t1"] == [at(2), at(11)]
 
 

@@ -115,7 +115,8 @@ def test_table_covers_every_state_and_trigger():
                          ids=[f"{s.name}-{t.name}-{a}" for s, t, a, _ in TABLE])
 def test_transition(state, trigger, active, expected):
     if expected == X:
-        with pytest.raises(IllegalTransitionError, match=f"cannot {trigger.value.replace('_', ' ')}"):
+        action = trigger.value.replace("_", " ")
+        with pytest.raises(IllegalTransitionError, match=f"cannot {action}"):
             next_state(state, trigger, active=active)
     else:
         assert next_state(state, trigger, active=active) is expected
