@@ -11,10 +11,13 @@ read in the declared unit system of its source (``"us"``: ft, cfs, ft², ft/s, f
 0.3048
 >>> format_quantity(0.3048, "length", "us")
 '1.00 ft'
+>>> round(to_si("59 degF", "temperature", "us"), 6)
+15.0
 """
 
 from __future__ import annotations
 
+import re
 from functools import cache
 from typing import Literal
 
@@ -31,6 +34,8 @@ __all__ = [
 
 UnitSystem = Literal["us", "si"]
 
+_NUMBER_UNIT = re.compile(r"^([-+]?(?:\d+\.?\d*|\.\d+)(?:[eE][-+]?\d+)?)\s*([^\d\s].*)$")
+
 # kind -> (SI unit, US customary unit, label in SI, label in US)
 KINDS: dict[str, tuple[str, str, str, str]] = {
     "length": ("m", "ft", "m", "ft"),
@@ -39,6 +44,10 @@ KINDS: dict[str, tuple[str, str, str, str]] = {
     "velocity": ("m/s", "ft/s", "m/s", "ft/s"),
     "power_density": ("W/m**3", "ft*lbf/s/ft**3", "W/m³", "ft·lbf/s/ft³"),
     "loss_coefficient": ("s**2/m**5", "s**2/ft**5", "s²/m⁵", "s²/ft⁵"),
+    # water-quality criteria are published in °C and mg/L, so both systems display them so;
+    # values given with another unit ("59 degF", "0.006 g/L") are converted
+    "temperature": ("degC", "degC", "°C", "°C"),
+    "concentration": ("mg/L", "mg/L", "mg/L", "mg/L"),
 }
 
 
@@ -89,7 +98,9 @@ def to_si(value: float | int | str, kind: str, system: UnitSystem) -> float:
     si_unit = _kind(kind)[0]
     ureg = _registry()
     try:
-        quantity = ureg.Quantity(text)
+        m = _NUMBER_UNIT.match(text)
+        # number and unit apart, so offset units (degF) are not read as a product
+        quantity = ureg.Quantity(float(m.group(1)), m.group(2)) if m else ureg.Quantity(text)
     except Exception as exc:
         raise ValueError(f"cannot read {value!r} as a quantity ({exc})") from None
     if not isinstance(quantity, pint.Quantity) or quantity.dimensionless:

@@ -12,6 +12,11 @@ Contract (the same contract tests run against every feed, see ``tests/db/test_fe
 - ``feed.supports_history`` tells whether ``feed.history(tags, start, end)`` can return the
   readings the source kept between two times (used to backfill a gap after an outage); a feed
   without history returns an empty list.
+- ``feed.commit()`` is called by the ingest after the readings of a ``read`` are stored: a feed
+  that consumes its source (the CSV drop folder moves its files) does so only then, so a crash
+  between reading and storing loses nothing (storage is idempotent, a re-read is harmless).
+- ``feed.problems`` lists what the last ``read`` could not read (unknown addresses, bad rows),
+  one line each, for the feed-health table; the readings it could read are still returned.
 - ``feed.close()`` releases connections; a closed feed may be read again (it reconnects).
 
 Values are SI in the tag's unit (``TagDef.unit``); times are timezone-aware UTC.
@@ -53,6 +58,10 @@ class Feed(ABC):
 
     id: str
     supports_history: bool = False
+    problems: list[str]
+
+    def __init__(self) -> None:
+        self.problems = []
 
     @abstractmethod
     def read(self, tags: Sequence[TagDef], now: datetime) -> list[FeedReading]:
@@ -62,6 +71,9 @@ class Feed(ABC):
                 ) -> list[FeedReading]:
         """Readings kept by the source between ``start`` and ``end`` (inclusive)."""
         return []
+
+    def commit(self) -> None:  # noqa: B027 - optional for feeds that consume nothing
+        """Acknowledge that the last read's readings are stored."""
 
     def close(self) -> None:  # noqa: B027 - optional for feeds that hold nothing
         """Release connections."""
