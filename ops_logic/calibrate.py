@@ -564,6 +564,12 @@ def calibrate(ladder: Ladder, observations: Sequence[Observation], *,
                             "nothing about it: not fitted (multiplier kept at 1)")
         else:
             fit.append(k)
+    no_aux = all(sum(a.flow_m3s for a in p.aux) <= 0.0 for p in base_profiles)
+    if no_aux and len(fit) > 1 and set(fit) == {k for k in counts if flowing[k]}:
+        warnings.append("no auxiliary water flows in any observation: scaling every coefficient "
+                        "by one factor scales every flow and leaves every level unchanged, so "
+                        "the levels fix only the ratios between the fitted kinds; fix one kind "
+                        "(fit the others) or add observations with auxiliary water running")
     n_obs = len(observations)
     z0 = np.asarray([p_lvl - v for p, obs in zip(base_profiles, observations, strict=True)
                      for pid, v in obs.levels_m.items()
