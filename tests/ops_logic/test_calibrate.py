@@ -522,3 +522,19 @@ def test_bad_observation_rows_name_line_and_column(east_cal, lines, line, column
 def test_empty_observation_files(east_cal, text):
     with pytest.raises(ObservationError, match=r"empty|no observation rows"):
         parse_observations(text, east_cal, "us", "obs.csv")
+
+
+def test_without_auxiliary_water_a_common_factor_is_flagged(make_ladder):
+    # Self-consistency (no published source): with no auxiliary water, multiplying every
+    # coefficient by one factor multiplies every flow and leaves every level as it was, so
+    # only the ratios between kinds are determined; the fit must say so.
+    ladder = make_ladder(n_baffles=4, kind="weir_orifice")
+    obs = []
+    for i, (head, tw) in enumerate([(0.25, 0.6), (0.35, 0.9), (0.45, 1.2)]):
+        s = {"exit_crest_m": 99.5, "entrance_E1_crest_m": ladder.pool_floor_m[-1] + 0.4}
+        tail = ladder.pool_floor_m[-1] + tw
+        p = ladder.solve(99.5 + head, tail, s)
+        obs.append(Observation(i + 2, 99.5 + head, tail, s,
+                               {q.id: q.water_level_m for q in p.pools}))
+    result = calibrate(ladder, obs)
+    assert any("only the ratios" in w for w in result.warnings)
