@@ -1,0 +1,1 @@
+"""Plotly figures of the dashboard pages."""
