@@ -58,8 +58,9 @@ RACK_TOLERANCE_M = 0.002
 """The trash-rack loss and the ladder flow of a profile agree to this [m]."""
 RACKS = {"trash_rack": (0.4, 0.75), "picket": (0.5, 0.6)}
 """(Design approach velocity [m/s], clean open fraction) of the trash rack and the pickets; the
-gross area is sized for the design velocity at the ladder flow recommended for mid-range
-levels (invented values; approach velocities of a few tenths of a m/s are common practice)."""
+gross area is sized for the design velocity at the design ladder flow: the settings recommended
+for mid-range levels with the forebay at the top of its range (invented values; approach
+velocities of a few tenths of a m/s are common practice)."""
 
 
 class _Fishway:
@@ -163,7 +164,8 @@ class Plant:
         fb, tw = float(self.env.forebay_m(f.id, t0)[0]), float(self.env.tailwater_m(f.id, t0)[0])
         temp = float(self.env.temperature_c(t0)[0])
         mid_fb, mid_tw = 0.5 * sum(f.forebay_range), 0.5 * sum(f.tailwater_range)
-        design = ladder.recommend(mid_fb, mid_tw, temperature_c=temp).profile.ladder_flow_m3s
+        mid = ladder.recommend(mid_fb, mid_tw, temperature_c=temp).settings
+        design = ladder.solve(f.forebay_range[1], mid_tw, mid, temperature_c=temp).ladder_flow_m3s
         for where, (velocity, _) in RACKS.items():
             fw.rack_area_m2[where] = max(design, 0.05) / velocity
         recommended = ladder.recommend(fb, tw, temperature_c=temp).settings
@@ -445,6 +447,24 @@ class Plant:
         assert fault.kind in FAULT_KINDS
         self._faults.append(ActiveFault(fault.tag, fault.kind, self._sec(fault.start, "start"),
                                         self._sec(fault.end, "end"), dict(fault.params)))
+
+    def end_fault(self, tag_name: str, kind: str, at: datetime) -> int:
+        """End, at ``at``, the faults of ``tag_name`` and ``kind`` active then (``"*"`` and
+        ``"outage"``: the communications outage); return how many were ended."""
+        with self._lock:
+            s = self._sec(at, "end_fault at")
+            n = 0
+            if kind == "outage":
+                for i, (a, b) in enumerate(self._outages):
+                    if a <= s < b:
+                        self._outages[i] = (a, s)
+                        n += 1
+                return n
+            for i, f in enumerate(self._faults):
+                if f.tag == tag_name and f.kind == kind and f.start_s <= s < f.end_s:
+                    self._faults[i] = f._replace(end_s=s)
+                    n += 1
+            return n
 
     def in_outage(self, t: datetime) -> bool:
         """True while a communications outage is scheduled at ``t``."""

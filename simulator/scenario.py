@@ -291,7 +291,7 @@ def demo_scenario(start: datetime, site: Site | None = None) -> Scenario:
         warm_spells=(WarmSpell(at(0.25), at(7.9), peak_c=21.2, ramp_s=0.8 * 86400.0),),
         low_oxygen=(LowOxygen(at(4.05), at(4.05 + 10 / 24), min_do_mg_l=4.3),),
         forebay_drops=(ForebayDrop(at(0.85), 0.45), ForebayDrop(at(6.30), 0.35)),
-        debris=(DebrisPulse(at(0.40), at(1.40), 5.0, "trash_rack", fw[0]),
+        debris=(DebrisPulse(at(0.40), at(1.40), 8.0, "trash_rack", fw[0]),
                 DebrisPulse(at(2.00), at(3.00), 4.0, "picket", None)),
         cleanings=(Cleaning(at(1.60), "trash_rack", fw[0]), Cleaning(at(3.40), "picket", None)),
         pump_trips=tuple(PumpTrip(f, a, at(5.50), at(5.50 + 2 / 24)) for f, a in pumps[:1]),
