@@ -58,8 +58,8 @@ import pandas as pd
 import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 
-from db.models import Fishway, OperatorLogEntry, Recommendation, Site
-from db.types import ms_to_datetime, ms_to_index, to_epoch_ms, to_utc
+from db.models import Base, Fishway, OperatorLogEntry, Recommendation, Site, User
+from db.types import UTCDateTime, ms_to_datetime, ms_to_index, to_epoch_ms, to_utc
 
 __all__ = [
     "corrections_of",
@@ -209,3 +209,143 @@ def corrections_of(engine: Engine, entry_ids: Iterable[int]) -> dict[int, list[i
         for ref, i in conn.execute(stmt):
             out.setdefault(int(ref), []).append(int(i))
     return out
+
+
+# == Overview, wall display, data health, site & settings pages ==============================
+# ``record_setting_change(engine, fishway_id, key, ts, *, action, set_by, old_value=None,
+# new_value=None, old_text=None, new_text=None, note="") -> int`` appends one change of a
+# fishway's targets, alarm limits or mode to ``setting_changes`` (migration 0002; values SI,
+# ``action`` "set" or "revert"). ``setting_changes_frame(engine, fishway_id=None, limit=200)``
+# → changes newest first (index ``ts``). ``setting_overrides(engine)`` → ``(version,
+# {fishway_id: {key: (value, text)}})``, the overrides in force (the newest change of each key,
+# unless it was a revert) and the id of the newest change (0 when none: a cache key).
+# ``flag_counts(engine, start, end)`` → QARTOD flag counts per tag in ``[start, end)``
+# (index ``tag_id``; columns 1, 2, 3, 4, 9). ``users_frame(engine)`` → the accounts without
+# their password hashes (index ``name``; columns id, role, created_at, active).
+#
+# The table's model is described here, on the models' metadata, until db/models.py holds it
+# (migration 0002 builds the table and imports this module so that the comparison of the
+# models with the migrated schema sees it; move it to db/models.py and drop that import).
+SETTING_CHANGES = sa.Table(
+    "setting_changes", Base.metadata,
+    sa.Column("id", sa.Integer, primary_key=True),
+    sa.Column("ts", UTCDateTime(), nullable=False),
+    sa.Column("fishway_id", sa.ForeignKey("fishways.id"), nullable=False),
+    sa.Column("key", sa.String(200), nullable=False),
+    sa.Column("action", sa.String(16), nullable=False),
+    sa.Column("old_value", sa.Double),
+    sa.Column("new_value", sa.Double),
+    sa.Column("old_text", sa.String(100)),
+    sa.Column("new_text", sa.String(100)),
+    sa.Column("set_by", sa.String(100), nullable=False),
+    sa.Column("note", sa.Text, nullable=False, server_default=""),
+    sa.CheckConstraint("action IN ('set', 'revert')", name="action_known"),
+    sa.Index("ix_setting_changes_fishway_key", "fishway_id", "key"),
+)
+SETTING_ACTIONS = ("set", "revert")
+QARTOD_FLAG_NAMES = {1: "pass", 2: "not evaluated", 3: "suspect", 4: "fail", 9: "missing"}
+"""QARTOD flag names (IOOS flags manual v1.2, 2020; as in ``ioos_qc.qartod.QartodFlags``)."""
+
+__all__ += ["QARTOD_FLAG_NAMES", "SETTING_ACTIONS", "SETTING_CHANGES", "flag_counts",
+            "record_setting_change", "setting_changes_frame", "setting_overrides",
+            "users_frame"]
+
+
+def _finite_or_none(name: str, value: float | None) -> float | None:
+    if value is None:
+        return None
+    value = float(value)
+    if not np.isfinite(value):
+        raise ValueError(f"{name} must be finite")
+    return value
+
+
+def record_setting_change(engine: Engine, fishway_id: int, key: str, ts: datetime, *,
+                          action: str, set_by: str, old_value: float | None = None,
+                          new_value: float | None = None, old_text: str | None = None,
+                          new_text: str | None = None, note: str = "") -> int:
+    """Append one setting change; return its id. ValueError for a bad action, an empty key
+    or author, a set without a new value, or a non-finite value."""
+    if action not in SETTING_ACTIONS:
+        raise ValueError(f"unknown action {action!r}; known: {SETTING_ACTIONS}")
+    if not key or len(key) > 200:
+        raise ValueError("a setting change needs a key of 1–200 characters")
+    if not set_by:
+        raise ValueError("a setting change records who made it")
+    if action == "set" and new_value is None and new_text is None:
+        raise ValueError("a set needs the new value")
+    values = {"ts": to_utc(ts), "fishway_id": int(fishway_id), "key": key, "action": action,
+              "old_value": _finite_or_none("old_value", old_value),
+              "new_value": _finite_or_none("new_value", new_value), "old_text": old_text,
+              "new_text": new_text, "set_by": set_by, "note": note}
+    with engine.begin() as conn:
+        return int(conn.execute(sa.insert(SETTING_CHANGES).values(**values))
+                   .inserted_primary_key[0])
+
+
+def setting_changes_frame(engine: Engine, fishway_id: int | None = None,
+                          limit: int = 200) -> pd.DataFrame:
+    """Setting changes, newest first (by id); index ``ts`` (UTC)."""
+    t = SETTING_CHANGES
+    stmt = sa.select(t).order_by(t.c.id.desc()).limit(int(limit))
+    if fishway_id is not None:
+        stmt = stmt.where(t.c.fishway_id == int(fishway_id))
+    with engine.connect() as conn:
+        result = conn.execute(stmt)
+        frame = pd.DataFrame(result.all(), columns=list(result.keys()))
+    if frame.empty:
+        frame = frame.astype({"ts": "datetime64[us, UTC]"})
+    frame["ts"] = pd.to_datetime(frame["ts"], utc=True)
+    return frame.set_index("ts")
+
+
+_OVERRIDES_SQL = sa.text(
+    "SELECT c.fishway_id, c.key, c.action, c.new_value, c.new_text, c.id FROM setting_changes c "
+    "WHERE c.id = (SELECT max(m.id) FROM setting_changes m WHERE m.fishway_id = c.fishway_id "
+    "AND m.key = c.key)")
+
+
+def setting_overrides(engine: Engine) -> tuple[int, dict[int, dict[str, tuple]]]:
+    """The overrides in force and the newest change id; see the section comment."""
+    out: dict[int, dict[str, tuple]] = {}
+    version = 0
+    with engine.connect() as conn:
+        for fw, key, action, value, text, i in conn.execute(_OVERRIDES_SQL):
+            version = max(version, int(i))
+            if action == "set":
+                out.setdefault(int(fw), {})[str(key)] = (
+                    None if value is None else float(value), text)
+    return version, out
+
+
+_FLAG_COUNTS_SQL = sa.text(
+    "SELECT r.tag_id, r.flag, count(*) FROM readings r WHERE r.tag_id IN (SELECT id FROM tags) "
+    "AND r.ts_ms >= :lo AND r.ts_ms < :hi GROUP BY r.tag_id, r.flag")
+
+
+def flag_counts(engine: Engine, start: datetime | float, end: datetime | float) -> pd.DataFrame:
+    """Readings per QARTOD flag of each tag with readings in ``[start, end)``."""
+    lo, hi = to_epoch_ms(start), to_epoch_ms(end)
+    if hi <= lo:
+        raise ValueError("end must be after start")
+    with engine.connect() as conn:
+        rows = conn.execute(_FLAG_COUNTS_SQL, {"lo": lo, "hi": hi}).all()
+    flags = list(QARTOD_FLAG_NAMES)
+    frame = pd.DataFrame(rows, columns=["tag_id", "flag", "n"])
+    table = frame.pivot_table(index="tag_id", columns="flag", values="n", aggfunc="sum",
+                              fill_value=0) if not frame.empty else pd.DataFrame()
+    table = table.reindex(columns=flags, fill_value=0).astype("int64")
+    table.index = pd.Index(table.index.astype("int64"), name="tag_id")
+    table.columns = pd.Index(flags, name="flag")
+    return table
+
+
+def users_frame(engine: Engine) -> pd.DataFrame:
+    """Every account (no password hashes), index ``name``."""
+    t = User.__table__
+    stmt = sa.select(t.c.name, t.c.id, t.c.role, t.c.created_at, t.c.active).order_by(t.c.name)
+    with engine.connect() as conn:
+        result = conn.execute(stmt)
+        frame = pd.DataFrame(result.all(), columns=list(result.keys()))
+    frame["created_at"] = pd.to_datetime(frame["created_at"], utc=True)
+    return frame.set_index("name")
