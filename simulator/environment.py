@@ -178,6 +178,10 @@ class Environment:
                         for e in scenario.low_oxygen]
         self._pulses = [(rel(p.start), rel(p.end), p.rate_factor, p.where, p.fishway_id)
                         for p in scenario.debris]
+        ids = {f.id for f in site.fishways}
+        for p in scenario.debris:
+            if p.fishway_id is not None and p.fishway_id not in ids:
+                raise ValueError(f"debris pulse: no fishway {p.fishway_id!r} at this site")
         self._cleanings: dict[tuple[str, str], list[float]] = {
             (f.id, w): [0.0] for f in site.fishways for w in ("trash_rack", "picket")}
         for c in scenario.cleanings:

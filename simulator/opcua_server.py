@@ -197,7 +197,7 @@ async def _publish(server: Server, pub: _Published, t: datetime) -> None:
 async def serve(site: Site, endpoint: str = "opc.tcp://127.0.0.1:4840", *, speed: float = 1.0,
                 seed: int = 0, ready: asyncio.Event | None = None, plant: Plant | None = None,
                 start: datetime | None = None, scenario: Scenario | None = None,
-                update_s: float = 1.0, history_count: int = 50_000,
+                update_s: float = 1.0, history_count: int = 10_000,
                 history_db: str | Path | None = None, allow_remote: bool = False,
                 stop: asyncio.Event | None = None) -> None:
     """Serve the plant until cancelled (or ``stop`` is set); see the module docstring.
@@ -205,6 +205,9 @@ async def serve(site: Site, endpoint: str = "opc.tcp://127.0.0.1:4840", *, speed
     ``plant`` (default: a new :class:`Plant` of ``site`` from ``start``, default now, with
     ``seed`` and ``scenario``) is advanced to ``plant.start + speed × elapsed real time`` every
     ``update_s`` seconds and every tag is published. ``ready`` is set once clients can connect.
+    History keeps the last ``history_count`` values of each node (each about 320 bytes in the
+    memory store: 10 000 values of the demo site's 35 tags take about 110 MB, and cover 2.8 h
+    of 1-s updates).
     """
     host, port = check_endpoint(endpoint, allow_remote)
     if not 0.0 < speed <= 100_000.0:

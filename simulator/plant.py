@@ -278,12 +278,13 @@ class Plant:
         """True (noise-free) conditions at plant time ``t`` (default now): forebay, trash-rack
         head loss at the present ladder flow, the forebay the ladder sees behind the rack,
         tailwater, temperature."""
-        fw = self._fishway(fishway_id)
-        ta = np.array([self._t if t is None else t])
-        fb_a = self.env.forebay_m(fishway_id, ta)
-        fb, tw = float(fb_a[0]), float(self.env.tailwater_m(fishway_id, ta, fb_a)[0])
-        flow = float(fw.state(ta, fw.width - 1)[0])
-        dp = float(self._rack_dp(fw, "trash_rack", ta, np.array([flow]))[0])
+        with self._lock:
+            fw = self._fishway(fishway_id)
+            ta = np.array([self._t if t is None else t])
+            fb_a = self.env.forebay_m(fishway_id, ta)
+            fb, tw = float(fb_a[0]), float(self.env.tailwater_m(fishway_id, ta, fb_a)[0])
+            flow = float(fw.state(ta, fw.width - 1)[0])
+            dp = float(self._rack_dp(fw, "trash_rack", ta, np.array([flow]))[0])
         return {"forebay_m": fb, "trash_rack_dp_m": dp, "ladder_forebay_m": max(fb - dp, tw + 0.1),
                 "tailwater_m": tw, "temperature_c": float(self.env.temperature_c(ta)[0])}
 
