@@ -346,6 +346,16 @@ class Plant:
         with self._lock:
             return {n: float(a.commanded) for n, a in self._fishway(fishway_id).actuators.items()}
 
+    def rack_area_m2(self, fishway_id: str, where: str = "trash_rack") -> float:
+        """Gross area [m²] of the fishway's trash rack (or ``"picket"``: its pickets)."""
+        return self._fishway(fishway_id).rack_area_m2[where]
+
+    @property
+    def profile_solves(self) -> int:
+        """Profiles recorded so far (all fishways), the start included."""
+        with self._lock:
+            return sum(len(fw.seg_t) for fw in self._fw.values())
+
     def profile(self, fishway_id: str) -> Profile:
         """The last solved profile of a fishway."""
         with self._lock:

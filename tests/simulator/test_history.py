@@ -59,7 +59,7 @@ def test_one_simulated_day_benchmark(site, start, capsys):
     n = sum(len(b) for b in generate_history(plant, plant.tags, start,
                                              start + timedelta(days=1), 10.0))
     elapsed = time.perf_counter() - t0
-    solves = len(plant._fw["east"].seg_t) + len(plant._fw["west"].seg_t)
+    solves = plant.profile_solves
     with capsys.disabled():
         print(f"\n[benchmark] one simulated day, {len(plant.tags)} tags every 10 s: {n} "
               f"readings, {solves} profile solves, {elapsed:.2f} s "

@@ -226,7 +226,7 @@ def test_trash_rack_head_loss_builds_and_a_cleaning_resets_it(site, start, calm)
     # debris, on the approach velocity of the ladder flow
     velocity, open_clean = RACKS["trash_rack"]
     q = plant.profile("west").ladder_flow_m3s
-    area = plant._fw["west"].rack_area_m2["trash_rack"]
+    area = plant.rack_area_m2("west")
     load = plant.env.debris_load("west", "trash_rack", np.array([plant.seconds(plant.now)]))
     alpha = open_clean * (1.0 - float(blockage_fraction(load)[0]))
     expected = fluids.square_edge_grill(alpha) * (q / area) ** 2 / (2.0 * G)
