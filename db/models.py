@@ -12,8 +12,10 @@ feed and source address, QC limits, poll period) → ``readings`` (raw values) a
 ``recommendations`` (what the recommender advised, with inputs, settings, predicted
 criteria, binding constraint, feasibility and reason; JSON payloads),
 ``actuator_settings`` (what was actually set, by whom, from which source),
-``alarms`` (current state of each alarm, ISA-18.2 states) and ``alarm_events``
-(append-only history), ``operator_log`` (append-only; mistakes are fixed by a
+``alarms`` (current state of each alarm, ISA-18.2 states, with the alarm engine's working
+record of it) and ``alarm_events`` (append-only history), ``alarm_engine_state`` (one row per
+site: the rest of the engine's working state and the version that serialises its writers,
+:mod:`db.alarm.store`), ``operator_log`` (append-only; mistakes are fixed by a
 ``correction`` entry that refers to the entry it corrects), ``users`` and
 ``feed_health``.
 
@@ -49,6 +51,7 @@ __all__ = [
     "USER_ROLES",
     "ActuatorSetting",
     "Alarm",
+    "AlarmEngineState",
     "AlarmEvent",
     "Base",
     "FeedHealth",
@@ -80,7 +83,7 @@ ALARM_STATES = ("normal", "unacknowledged", "acknowledged", "rtn_unacknowledged"
                 "shelved", "suppressed_by_design", "out_of_service")
 ALARM_EVENT_KINDS = ("raised", "cleared", "acknowledged", "shelved", "unshelved",
                      "suppressed", "unsuppressed", "out_of_service", "returned_to_service",
-                     "priority_changed", "comment")
+                     "priority_changed", "comment", "limit_changed")
 
 
 def _in(column: str, values: tuple) -> str:
@@ -224,6 +227,9 @@ class Alarm(Base):
     last_value: Mapped[float | None] = mapped_column(sa.Double)
     message: Mapped[str] = mapped_column(sa.Text, server_default="")
     updated_at: Mapped[datetime] = mapped_column(UTCDateTime())
+    parent: Mapped[str | None] = mapped_column(sa.String(200))
+    suppressed_by: Mapped[str | None] = mapped_column(sa.String(200))
+    record: Mapped[dict | None] = mapped_column(sa.JSON)
 
 
 class AlarmEvent(Base):
@@ -242,6 +248,20 @@ class AlarmEvent(Base):
     value: Mapped[float | None] = mapped_column(sa.Double)
     who: Mapped[str | None] = mapped_column(sa.String(100))
     why: Mapped[str] = mapped_column(sa.Text, server_default="")
+    previous_state: Mapped[str | None] = mapped_column(sa.String(32))
+    message: Mapped[str | None] = mapped_column(sa.Text)
+    parent: Mapped[str | None] = mapped_column(sa.String(200))
+    old_value: Mapped[float | None] = mapped_column(sa.Double)
+    shelved_until: Mapped[datetime | None] = mapped_column(UTCDateTime())
+
+
+class AlarmEngineState(Base):
+    __tablename__ = "alarm_engine_state"
+    site_id: Mapped[int] = mapped_column(sa.ForeignKey("sites.id"), primary_key=True,
+                                         autoincrement=False)
+    version: Mapped[int] = mapped_column(sa.BigInteger, server_default="0")
+    state: Mapped[dict] = mapped_column(sa.JSON)
+    updated_at: Mapped[datetime] = mapped_column(UTCDateTime())
 
 
 class OperatorLogEntry(Base):
