@@ -14,8 +14,9 @@ value and passed QC or was not evaluated (QARTOD flag 1 or 2); index ``tag_id``,
 ``reading_near(engine, tag_id, when, window_s) -> dict | None`` — the reading with a value
 nearest in time to ``when`` within ``± window_s`` (keys ``ts``, ``value``, ``flag``).
 ``latest_recommendation(engine, fishway_id) -> dict | None`` — the newest stored
-recommendation of a fishway (keys ``id``, ``ts``, ``inputs``, ``settings``, ``predicted``,
-``binding_constraint``, ``feasible``, ``reason``).
+recommendation of a fishway (keys ``id``, ``fishway_id``, ``ts``, ``inputs``, ``settings``,
+``predicted``, ``binding_constraint``, ``feasible``, ``reason``);
+``recommendation(engine, recommendation_id) -> dict | None`` — one by its id.
 ``log_entries(engine, *, start=None, end=None, fishway_id=None, kinds=None, author=None,
 text=None, limit=200) -> DataFrame`` — operator log entries, newest first, filtered in SQL
 (``text`` matches the entry text case-insensitively as a plain substring: ``%`` and ``_``
@@ -69,6 +70,7 @@ __all__ = [
     "log_entries",
     "log_entry",
     "reading_near",
+    "recommendation",
 ]
 
 # == Profile, setpoints, trends and operator log pages ======================================
@@ -138,16 +140,29 @@ def reading_near(engine: Engine, tag_id: int, when: datetime | float,
     return {"ts": ms_to_datetime(int(best[0])), "value": float(best[1]), "flag": int(best[2])}
 
 
-def latest_recommendation(engine: Engine, fishway_id: int) -> dict | None:
-    """The newest stored recommendation of a fishway (by time, then id), or None."""
+def _recommendation_select() -> sa.Select:
     t = Recommendation.__table__
-    stmt = (sa.select(t.c.id, t.c.ts, t.c.inputs, t.c.settings, t.c.predicted,
-                      t.c.binding_constraint, t.c.feasible, t.c.reason)
-            .where(t.c.fishway_id == int(fishway_id))
-            .order_by(t.c.ts.desc(), t.c.id.desc()).limit(1))
+    return sa.select(t.c.id, t.c.fishway_id, t.c.ts, t.c.inputs, t.c.settings, t.c.predicted,
+                     t.c.binding_constraint, t.c.feasible, t.c.reason)
+
+
+def _one(engine: Engine, stmt: sa.Select) -> dict | None:
     with engine.connect() as conn:
         row = conn.execute(stmt).mappings().first()
     return dict(row) if row is not None else None
+
+
+def latest_recommendation(engine: Engine, fishway_id: int) -> dict | None:
+    """The newest stored recommendation of a fishway (by time, then id), or None."""
+    t = Recommendation.__table__
+    return _one(engine, _recommendation_select().where(t.c.fishway_id == int(fishway_id))
+                .order_by(t.c.ts.desc(), t.c.id.desc()).limit(1))
+
+
+def recommendation(engine: Engine, recommendation_id: int) -> dict | None:
+    """The stored recommendation with this id, or None."""
+    t = Recommendation.__table__
+    return _one(engine, _recommendation_select().where(t.c.id == int(recommendation_id)))
 
 
 def _like_literal(text: str) -> str:

@@ -54,6 +54,10 @@ REFRESH_MS = 60_000
 TABLE_ROUTE = "/setpoint-table/<fishway>"
 
 
+def _field(label: Any, control: Any) -> Any:
+    return html.Label([label, control], className="field")
+
+
 def layout(fishway: str | None = None, **_: Any) -> Any:
     denied = auth.guard()
     if denied is not None:
@@ -229,17 +233,17 @@ def what_if_form(fishway: str) -> Any:
     def level(v: float | None) -> str:
         return "" if v is None else f"{from_si(v, 'length', app.units):.2f}"
 
-    fields = [html.Label([f"Forebay ({lu})", dcc.Input(id=SETPOINTS_WHATIF_FOREBAY,
-                                                       value=level(view.state.forebay_m),
-                                                       type="text", debounce=True)]),
-              html.Label([f"Tailwater ({lu})", dcc.Input(id=SETPOINTS_WHATIF_TAILWATER,
-                                                         value=level(view.state.tailwater_m),
-                                                         type="text", debounce=True)])]
+    fields = [_field(f"Forebay ({lu})", dcc.Input(id=SETPOINTS_WHATIF_FOREBAY,
+                                                  value=level(view.state.forebay_m),
+                                                  type="text", debounce=True)),
+              _field(f"Tailwater ({lu})", dcc.Input(id=SETPOINTS_WHATIF_TAILWATER,
+                                                    value=level(view.state.tailwater_m),
+                                                    type="text", debounce=True))]
     for r in view.settings:
         unit = {"level": lu, "opening": "% open", "count": "pumps"}[r.spec.kind]
-        fields.append(html.Label([f"{r.label} ({unit})", dcc.Input(
+        fields.append(_field(f"{r.label} ({unit})", dcc.Input(
             id={"type": SETPOINTS_WHATIF_SETTING, "name": r.name}, type="text",
-            value=setting_input_value(r.spec, r.current, app.units))]))
+            value=setting_input_value(r.spec, r.current, app.units))))
     fields.append(html.Button("Predict", id=SETPOINTS_WHATIF_RUN, className="primary"))
     return html.Div(fields, className="whatif-form")
 
