@@ -237,6 +237,9 @@ def corrections_of(engine: Engine, entry_ids: Iterable[int]) -> dict[int, list[i
 # ``flag_counts(engine, start, end)`` → QARTOD flag counts per tag in ``[start, end)``
 # (index ``tag_id``; columns 1, 2, 3, 4, 9). ``users_frame(engine)`` → the accounts without
 # their password hashes (index ``name``; columns id, role, created_at, active).
+# ``alarm_counts(engine)`` → ``[(fishway_id, priority, state, count)]`` over the alarms table
+# (empty: no alarm data at all). ``hourly_maxima(engine, tag_id, start, end)`` → (epoch ms,
+# value) arrays of the hourly rollups' maxima (for a 7DADM).
 #
 # The table's model is described here, on the models' metadata, until db/models.py holds it
 # (migration 0002 builds the table and imports this module so that the comparison of the
@@ -261,9 +264,9 @@ SETTING_ACTIONS = ("set", "revert")
 QARTOD_FLAG_NAMES = {1: "pass", 2: "not evaluated", 3: "suspect", 4: "fail", 9: "missing"}
 """QARTOD flag names (IOOS flags manual v1.2, 2020; as in ``ioos_qc.qartod.QartodFlags``)."""
 
-__all__ += ["QARTOD_FLAG_NAMES", "SETTING_ACTIONS", "SETTING_CHANGES", "flag_counts",
-            "record_setting_change", "setting_changes_frame", "setting_overrides",
-            "users_frame"]
+__all__ += ["QARTOD_FLAG_NAMES", "SETTING_ACTIONS", "SETTING_CHANGES", "alarm_counts",
+            "flag_counts", "hourly_maxima", "record_setting_change", "setting_changes_frame",
+            "setting_overrides", "users_frame"]
 
 
 def _finite_or_none(name: str, value: float | None) -> float | None:
@@ -364,3 +367,34 @@ def users_frame(engine: Engine) -> pd.DataFrame:
         frame = pd.DataFrame(result.all(), columns=list(result.keys()))
     frame["created_at"] = pd.to_datetime(frame["created_at"], utc=True)
     return frame.set_index("name")
+
+
+_ALARM_COUNTS_SQL = sa.text(
+    "SELECT fishway_id, priority, state, count(*) FROM alarms GROUP BY fishway_id, priority, "
+    "state")
+
+
+def alarm_counts(engine: Engine) -> list[tuple[int | None, str, str, int]]:
+    """Alarms of the alarms table counted by (fishway id, priority, state); an empty list when
+    the table has no row at all (no alarm data, as opposed to no active alarm)."""
+    with engine.connect() as conn:
+        return [(None if fw is None else int(fw), str(p), str(s), int(n))
+                for fw, p, s, n in conn.execute(_ALARM_COUNTS_SQL)]
+
+
+_HOURLY_MAX_SQL = sa.text(
+    "SELECT vmax_ms, vmax FROM rollups WHERE tag_id = :tag AND res_s = 3600 "
+    "AND bucket_ms >= :lo AND bucket_ms < :hi ORDER BY bucket_ms")
+
+
+def hourly_maxima(engine: Engine, tag_id: int, start: datetime | float,
+                  end: datetime | float) -> tuple[np.ndarray, np.ndarray]:
+    """Time [epoch ms] and value of the maximum of each hourly rollup of a tag whose bucket
+    starts in ``[start, end)``."""
+    with engine.connect() as conn:
+        rows = conn.execute(_HOURLY_MAX_SQL, {"tag": int(tag_id), "lo": to_epoch_ms(start),
+                                              "hi": to_epoch_ms(end)}).all()
+    if not rows:
+        return np.empty(0, dtype="int64"), np.empty(0, dtype="float64")
+    ts, value = zip(*rows, strict=True)
+    return np.asarray(ts, dtype="int64"), np.asarray(value, dtype="float64")

@@ -1,0 +1,294 @@
+"""What the overview and the wall display show: bullet indicators, texts, classes, sparklines.
+
+A *bullet indicator* is a horizontal track with the acceptable band drawn on it, a tick at the
+target and a marker at the value (ANSI/ISA-101 practice: the value beside its band, so how far
+off it is shows at a glance). Its scale depends on the band only, not on the value, so the
+track stays put between refreshes; a value off the scale sits at the end of the track with
+the ``off-scale`` class. Colour is for abnormal states only: the CSS classes of
+``assets/style.css`` (section "Overview and wall display") give grey for normal, amber for a
+value out of its band or a fishway out of criteria, grey italics for stale data, and the
+alarm colours by priority.
+
+The page's components carry pattern ids ``{"type": ..., "key": "<fishway>.<item>"}``;
+:func:`panel_values`, :func:`summary_values` and :func:`wall_values` give, per key, the text
+and CSS class (every text item has both) and the style patches of one refresh, so a refresh
+sends only those small properties.
+
+>>> b = bullet_geometry(0.4, 0.3048, 0.4572, 0.381)
+>>> round(b.band_left_pct, 1), round(b.band_width_pct, 1), round(b.value_pct, 1)
+(25.0, 50.0, 56.2)
+>>> bullet_geometry(12.0, None, 21.0, None).value_pct > 0    # one-sided band from zero
+True
+>>> bullet_geometry(None, 1.0, 2.0, None).value_pct is None
+True
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from datetime import datetime
+from typing import Any
+
+import plotly.graph_objects as go
+from dash import Patch
+
+from dashboard.services.overview import (
+    PRIORITIES,
+    FishwayStatus,
+    Metric,
+    Snapshot,
+    age_text,
+)
+from dashboard.services.site import display_number, format_value, unit_label
+
+__all__ = [
+    "SPARK_POINTS",
+    "Bullet",
+    "bullet_geometry",
+    "metric_band_text",
+    "panel_values",
+    "spark_extension",
+    "sparkline_figure",
+    "state_class",
+    "summary_values",
+    "wall_values",
+]
+
+SPARK_POINTS = 360
+"""Points kept in a sparkline trace: six hours of one-minute rollups."""
+
+
+@dataclass(frozen=True)
+class Bullet:
+    """Positions on the track, in percent of its width (None: not drawn)."""
+
+    band_left_pct: float | None
+    band_width_pct: float | None
+    target_pct: float | None
+    value_pct: float | None
+    off_scale: bool
+
+
+def _scale(lo: float | None, hi: float | None) -> tuple[float, float] | None:
+    if lo is not None and hi is not None:
+        span = hi - lo
+        return lo - 0.5 * span, hi + 0.5 * span
+    if hi is not None:
+        return (0.0, 1.5 * hi) if hi > 0 else (hi - 1.0, hi + 1.0)
+    if lo is not None:
+        return (0.0, 2.0 * lo) if lo > 0 else (lo - 1.0, lo + 1.0)
+    return None
+
+
+def bullet_geometry(value: float | None, lo: float | None, hi: float | None,
+                    target: float | None) -> Bullet | None:
+    """The bullet of a value against a band (any unit, the same for all); None without a
+    band. Two-sided bands span the middle half of the track; a one-sided band runs from zero
+    (a maximum over 2/3 of the track, a minimum over 1/2)."""
+    scale = _scale(lo, hi)
+    if scale is None:
+        return None
+    a, b = scale
+
+    def pct(x: float) -> float:
+        return 100.0 * (x - a) / (b - a)
+
+    left = pct(lo) if lo is not None else 0.0
+    right = pct(hi) if hi is not None else 100.0
+    v = None
+    off = False
+    if value is not None and math.isfinite(value):
+        raw = pct(value)
+        off = raw < 0.0 or raw > 100.0
+        v = min(max(raw, 0.0), 100.0)
+    t = pct(target) if target is not None else None
+    return Bullet(left, right - left, t, v, off)
+
+
+def metric_band_text(m: Metric, units: str) -> str:
+    """The band of a metric in display units (``'band 1.00–1.50 ft, target 1.25'``)."""
+    if m.lo is None and m.hi is None:
+        return "no target band"
+    fv = format_value
+    if m.lo is not None and m.hi is not None:
+        text = f"band {fv(m.lo, m.kind, units, unit=False)}–{fv(m.hi, m.kind, units)}"
+    elif m.hi is not None:
+        text = f"max {fv(m.hi, m.kind, units)}"
+    else:
+        text = f"min {fv(m.lo, m.kind, units)}"
+    if m.target is not None:
+        text += f", target {fv(m.target, m.kind, units, unit=False)}"
+    return text
+
+
+def state_class(status: FishwayStatus) -> str:
+    """CSS class of a fishway's state badge."""
+    return {"in_criteria": "ov-state state-ok", "out_of_criteria": "ov-state state-bad",
+            "out_of_service": "ov-state state-oos", "no_data": "ov-state state-nodata",
+            "model_error": "ov-state state-bad"}[status.state] + (
+        " is-stale" if status.stale and status.state != "out_of_service" else "")
+
+
+def _row_class(m: Metric) -> str:
+    return f"ov-metric is-{m.status}" + (" no-band" if m.lo is None and m.hi is None else "")
+
+
+def _style(b: Bullet | None, part: str) -> Patch:
+    p = Patch()
+    if b is None:
+        p["display"] = "none"
+        return p
+    p["display"] = "block"
+    if part == "band":
+        p["left"], p["width"] = f"{b.band_left_pct:.2f}%", f"{b.band_width_pct:.2f}%"
+    elif part == "target":
+        if b.target_pct is None:
+            p["display"] = "none"
+        else:
+            p["left"] = f"{b.target_pct:.2f}%"
+    elif b.value_pct is None:
+        p["display"] = "none"
+    else:
+        p["left"] = f"{b.value_pct:.2f}%"
+        p["outline"] = "3px solid var(--abnormal)" if b.off_scale else "none"
+    return p
+
+
+def _alarm_items(counts: dict[str, int] | None, prefix: str, texts: dict, classes: dict,
+                 none_text: str = "no alarm data") -> None:
+    if counts is None:
+        texts[f"{prefix}.alarms"] = none_text
+        classes[f"{prefix}.alarms"] = "ov-alarms-note"
+        for p in PRIORITIES:
+            texts[f"{prefix}.alarm.{p}"] = "–"
+            classes[f"{prefix}.alarm.{p}"] = "ov-alarm is-zero"
+        return
+    active = sum(counts[p] for p in PRIORITIES)
+    texts[f"{prefix}.alarms"] = (
+        "no active alarms" if not active else
+        f"{active} active, {counts['unacknowledged']} unacknowledged") + (
+        f"; {counts['shelved']} shelved" if counts.get("shelved") else "")
+    classes[f"{prefix}.alarms"] = "ov-alarms-note"
+    level = {"critical": 1, "high": 1, "medium": 2, "low": 3}
+    for p in PRIORITIES:
+        n = counts[p]
+        texts[f"{prefix}.alarm.{p}"] = str(n)
+        classes[f"{prefix}.alarm.{p}"] = f"ov-alarm alarm-{level[p]}" if n else \
+            "ov-alarm is-zero"
+
+
+def panel_values(status: FishwayStatus, units: str) -> tuple[dict, dict, dict]:
+    """Texts, classes and style patches by key for one fishway's overview panel."""
+    fid = status.id
+    texts: dict[str, Any] = {}
+    classes: dict[str, str] = {}
+    styles: dict[str, Patch] = {}
+    texts[f"{fid}.state"] = status.state_label
+    classes[f"{fid}.state"] = state_class(status)
+    texts[f"{fid}.reason"] = status.reason
+    classes[f"{fid}.reason"] = "ov-reason"
+    age = age_text(status.age_s)
+    texts[f"{fid}.age"] = (f"STALE: data {age} old" if status.stale and status.age_s is not None
+                           else "no current readings" if status.age_s is None
+                           else f"data {age} old")
+    classes[f"{fid}.age"] = "ov-age is-stale" if status.stale else "ov-age"
+    for m in status.metrics:
+        k = f"{fid}.{m.key}"
+        texts[f"{k}.value"] = format_value(m.value, m.kind, units)
+        texts[f"{k}.band"] = metric_band_text(m, units)
+        note = m.note
+        if m.source and m.source not in ("gauge",):
+            note = f"{note} · {m.source}" if note else m.source
+        texts[f"{k}.note"] = note
+        classes.update({f"{k}.value": "ov-value", f"{k}.band": "ov-bandtext",
+                        f"{k}.note": "ov-note", f"{k}.row": _row_class(m)})
+        b = bullet_geometry(m.value, m.lo, m.hi, m.target)
+        for part in ("band", "target", "marker"):
+            styles[f"{k}.{part}"] = _style(b, part)
+    _alarm_items(status.alarms, fid, texts, classes)
+    adj = status.adjustment
+    texts[f"{fid}.adjust"] = adj.text
+    texts[f"{fid}.changes"] = "; ".join(adj.changes)
+    classes[f"{fid}.changes"] = "ov-changes"
+    classes[f"{fid}.adjust"] = "ov-adjust is-due" if adj.status == "due" else (
+        "ov-adjust is-stale" if adj.stale or adj.status == "unknown" else "ov-adjust")
+    texts[f"{fid}.gauges"] = status.gauges
+    classes[f"{fid}.gauges"] = "ov-gauges" if status.gauges_ok else "ov-gauges is-abnormal"
+    return texts, classes, styles
+
+
+def summary_values(snap: Snapshot) -> tuple[dict, dict]:
+    """Texts and classes of the site summary line above the panels."""
+    texts: dict[str, Any] = {}
+    classes: dict[str, str] = {}
+    local = snap.now.astimezone(_zone(snap.time_zone))
+    texts["site.time"] = f"as of {local:%Y-%m-%d %H:%M:%S} ({snap.time_zone})"
+    classes["site.time"] = "ov-time"
+    _alarm_items(snap.site_alarms, "site", texts, classes)
+    texts["site.problems"] = "; ".join(snap.problems)
+    classes["site.problems"] = "ov-problems" if snap.problems else "ov-problems is-empty"
+    return texts, classes
+
+
+def _zone(name: str) -> Any:
+    from zoneinfo import ZoneInfo
+
+    return ZoneInfo(name)
+
+
+def wall_values(snap: Snapshot) -> tuple[dict, dict]:
+    """Texts and classes of the wall display: state, worst criterion, alarms, data age."""
+    texts: dict[str, Any] = {}
+    classes: dict[str, str] = {}
+    local = snap.now.astimezone(_zone(snap.time_zone))
+    texts["site.time"] = f"{local:%H:%M}"
+    classes["site.time"] = "wall-time"
+    for s in snap.fishways:
+        fid = s.id
+        texts[f"{fid}.state"] = s.state_label
+        classes[f"{fid}.state"] = state_class(s).replace("ov-state", "wall-state")
+        texts[f"{fid}.worst"] = s.worst if s.state in ("in_criteria", "out_of_criteria") \
+            else s.reason
+        classes[f"{fid}.worst"] = "wall-worst"
+        age = age_text(s.age_s)
+        texts[f"{fid}.age"] = ("no current readings" if s.age_s is None else
+                               f"STALE {age}" if s.stale else f"data {age} old")
+        classes[f"{fid}.age"] = "wall-age is-stale" if s.stale else "wall-age"
+        _alarm_items(s.alarms, fid, texts, classes)
+        texts[f"{fid}.adjust"] = "ADJUSTMENT DUE" if s.adjustment.status == "due" else ""
+        classes[f"{fid}.adjust"] = "wall-adjust is-due" if s.adjustment.status == "due" \
+            else "wall-adjust"
+    return texts, classes
+
+
+def _local_times(ms: list[int], time_zone: str) -> list[str]:
+    """Epoch milliseconds as local wall-clock text plotly reads as dates."""
+    zone = _zone(time_zone)
+    return [datetime.fromtimestamp(t / 1000.0, tz=zone).strftime("%Y-%m-%d %H:%M:%S")
+            for t in ms]
+
+
+def sparkline_figure(points: tuple[list[int], list[float]] | None, kind: str, units: str,
+                     time_zone: str) -> go.Figure:
+    """A small trend without axes: a grey line of (epoch ms, SI values) in display units and
+    site time; the hover shows time and value."""
+    ms, values = points if points else ([], [])
+    fig = go.Figure(go.Scatter(
+        x=_local_times(ms, time_zone), y=[display_number(v, kind, units) for v in values],
+        mode="lines", line={"color": "#4a4f54", "width": 1.5}, showlegend=False,
+        hovertemplate=f"%{{x|%H:%M}}  %{{y:.2f}} {unit_label(kind, units)}<extra></extra>"))
+    fig.update_layout(
+        margin={"l": 0, "r": 0, "t": 0, "b": 0}, height=36, paper_bgcolor="rgba(0,0,0,0)",
+        plot_bgcolor="rgba(0,0,0,0)", xaxis={"visible": False, "fixedrange": True},
+        yaxis={"visible": False, "fixedrange": True}, hovermode="x", uirevision="keep")
+    return fig
+
+
+def spark_extension(points: tuple[list[int], list[float]], kind: str, units: str,
+                    time_zone: str) -> tuple[dict, list[int], int]:
+    """``extendData`` for a sparkline: the new points, trace 0, at most :data:`SPARK_POINTS`
+    kept (the oldest fall off)."""
+    ms, values = points
+    return ({"x": [_local_times(ms, time_zone)],
+             "y": [[display_number(v, kind, units) for v in values]]}, [0], SPARK_POINTS)
