@@ -44,6 +44,7 @@ __all__ = [
     "Feed",
     "Fishway",
     "Ingest",
+    "Notify",
     "Site",
     "SiteConfigError",
     "demo_site_path",
@@ -450,11 +451,46 @@ class Ingest(BaseModel):
     tags: list[TagOverride] = []
 
 
+class Notify(BaseModel):
+    """``[notify]``: outgoing e-mail for high-priority alarms (:mod:`db.notify`). The file holds
+    no password: ``password_env`` names the environment variable that does. At most one mail
+    per alarm per ``rate_limit_minutes``; more than ``digest_after`` alarms to mail at once (or
+    an alarm flood) go out as one digest."""
+
+    model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+    host: str = Field(min_length=1)
+    port: int = Field(25, ge=1, le=65535)
+    from_: str = Field(alias="from", pattern=r"^[^@\s]+@[^@\s]+$")
+    to: list[Annotated[str, Field(pattern=r"^[^@\s]+@[^@\s]+$")]] = Field(min_length=1)
+    starttls: bool = False
+    username: str | None = None
+    password_env: str | None = Field(None, pattern=r"^[A-Za-z_][A-Za-z0-9_]*$")
+    max_priority: Literal[1, 2, 3] = 1
+    rate_limit_minutes: float = Field(30.0, gt=0)
+    digest_after: int = Field(3, ge=1)
+    timeout_s: float = Field(10.0, gt=0, le=120)
+
+    @model_validator(mode="before")
+    @classmethod
+    def _no_password(cls, data: Any) -> Any:
+        if isinstance(data, dict) and "password" in data:
+            raise ValueError("no password in the site file: put it in an environment variable "
+                             "and name that variable in password_env")
+        return data
+
+    @model_validator(mode="after")
+    def _login(self) -> Notify:
+        if (self.username is None) != (self.password_env is None):
+            raise ValueError("give both username and password_env (or neither)")
+        return self
+
+
 class Site(BaseModel):
     model_config = _FROZEN
     site: SiteInfo
     fishways: list[Fishway] = Field(min_length=1)
     ingest: Ingest = Ingest()
+    notify: Notify | None = None
 
     @model_validator(mode="after")
     def _unique(self) -> Site:
