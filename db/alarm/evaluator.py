@@ -97,7 +97,7 @@ class AlarmEvaluator:
         self._overrides_version = version
         self.not_evaluated, self.problems = not_evaluated, tuple(problems)
         self._report(not_evaluated, problems)
-        if self.notifier is not None and s.events:
+        if self.notifier is not None:  # also without events: a held-back digest may be due
             self.notifier.notify(list(s.events), now, flood)
         return list(s.events)
 
