@@ -34,7 +34,8 @@ from ops_logic.site import SiteConfigError, load_site
 
 __all__ = ["COMMAND_MODULES", "build_parser", "main", "register"]
 
-COMMAND_MODULES: tuple[str, ...] = ("ops_logic.cli", "db.cli", "simulator.cli")
+COMMAND_MODULES: tuple[str, ...] = ("ops_logic.cli", "db.cli", "db.alarm_cli",
+                                     "simulator.cli")
 """Modules whose ``register(subparsers, common)`` adds sub-commands, in ``--help`` order."""
 
 
