@@ -422,11 +422,10 @@ def figure_patch(new: go.Figure) -> Patch:
     refresh does not redraw the chart."""
     patch = Patch()
     for i, trace in enumerate(new.data):
+        data = trace.to_plotly_json()
         for key in _PATCHED:
-            value = trace[key]
-            if value is not None:
-                patch["data"][i][key] = value.to_plotly_json() if hasattr(
-                    value, "to_plotly_json") else value
+            if key in data:
+                patch["data"][i][key] = data[key]
     patch["layout"]["annotations"] = [a.to_plotly_json() for a in new.layout.annotations]
     return patch
 

@@ -197,9 +197,12 @@ def _setting_value(ladder: Ladder, name: str, text: str, units: UnitSystem) -> f
         raise ValueError("not a finite number")
     try:
         ladder.check_settings({name: value})
-    except SettingError:
-        raise ValueError(f"{format_setting(spec, value, units, with_si=False)} is outside "
-                         f"{setting_range_text(spec, units)}") from None
+    except SettingError as exc:
+        if "outside" not in str(exc):  # e.g. not a whole number of pumps
+            raise ValueError(str(exc).replace(name, spec.label)) from None
+        shown = (f"{value:g} pumps" if spec.kind == "count" else
+                 format_setting(spec, value, units, with_si=False))
+        raise ValueError(f"{shown} is outside {setting_range_text(spec, units)}") from None
     return float(round(value)) if spec.kind == "count" else value
 
 
@@ -371,7 +374,8 @@ def _observation(ctx: AppContext, ladder: Ladder, fw: int, author: str, form: Lo
         sensor_value = sensor["value"]
         diff = value - sensor_value
         flagged = abs(diff) > tol
-        line += (f"; sensor {sensor_name} {f(sensor_value)} at "
+        qc = {3: " (QC: suspect)", 4: " (QC: fail)"}.get(sensor["flag"], "")
+        line += (f"; sensor {sensor_name} {f(sensor_value)}{qc} at "
                  f"{local_time_text(sensor['ts'], ctx)}; difference {f(diff)}")
         line += (f" — more than the {f(tol)} tolerance: FLAGGED" if flagged else
                  f", within the {f(tol)} tolerance")
