@@ -407,11 +407,16 @@ def prefill(ctx: AppContext, query: Mapping[str, object]) -> dict[str, object]:
     >>> p["kind"], p["adjustments"]
     ('adjustment', {'aux_G1_opening_pct': ('40.0', '55.0')})
     """
+    def one(key: str) -> str | None:  # a repeated key arrives as a list: take the first
+        v = query.get(key)
+        v = v[0] if isinstance(v, list | tuple) and v else v
+        return v if isinstance(v, str) else None
+
     out: dict[str, object] = {}
     fishways = [f.id for f in ctx.site.fishways]
-    fishway = query.get("fishway")
+    fishway = one("fishway")
     out["fishway"] = fishway if fishway in fishways else fishways[0]
-    kind = query.get("kind")
+    kind = one("kind")
     out["kind"] = kind if kind in KINDS else "shift_note"
     ladder = ctx.ladder(out["fishway"])  # type: ignore[arg-type]
     sets = query.get("set") or []
@@ -431,10 +436,10 @@ def prefill(ctx: AppContext, query: Mapping[str, object]) -> dict[str, object]:
         adjustments[parts[0]] = (_input_text(spec.kind, a, ctx.units),
                                  _input_text(spec.kind, b, ctx.units))
     out["adjustments"] = adjustments
-    rec = query.get("rec")
-    out["rec"] = int(rec) if isinstance(rec, str) and rec.isdigit() else None
-    ref = query.get("refers_to")
-    out["refers_to"] = ref if isinstance(ref, str) and ref.isdigit() else ""
+    rec = one("rec")
+    out["rec"] = int(rec) if rec is not None and rec.isdigit() else None
+    ref = one("refers_to")
+    out["refers_to"] = ref if ref is not None and ref.isdigit() else ""
     if adjustments:
         out["text"] = ("As recommended" + (f" (recommendation #{out['rec']})" if out["rec"]
                                            else " on the setpoints page") + ".")

@@ -329,6 +329,8 @@ def test_prefill_from_the_setpoints_link(fresh):
                               "set": ["exit_crest_m:76.9:77.0", "bogus:1:2", "aux_PS1_pumps:x:1"]})
     assert got["adjustments"] == {"exit_crest_m": (f"{76.9 / FT:.2f}", f"{77.0 / FT:.2f}")}
     assert got["rec"] == 12 and "recommendation #12" in got["text"]
+    assert prefill(fresh.ctx, {"kind": ["correction", "adjustment"], "refers_to": ["7"]})[
+        "kind"] == "correction"  # a repeated key: the first counts
     assert prefill(fresh.ctx, {"fishway": "nowhere", "kind": "drop table", "rec": "1;2"}) == {
         "fishway": "east", "kind": "shift_note", "adjustments": {}, "rec": None,
         "refers_to": ""}
