@@ -70,7 +70,7 @@ def _check_role(conn: Connection, who: str, roles: tuple[str, ...], what: str) -
     if row is None or not row.active:
         raise PermissionError(f"{who!r} is not an active user: cannot {what}")
     if row.role not in roles:
-        raise PermissionError(f"{who} is a {row.role}: {what} needs the role "
+        raise PermissionError(f"{who} has the role {row.role}: to {what} needs the role "
                               f"{' or '.join(roles)}")
 
 
