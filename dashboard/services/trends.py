@@ -268,10 +268,9 @@ def _derived_series(ctx: AppContext, opt: SeriesOption, start: datetime, end: da
         source, note = "raw", ""
     else:
         a, b = (rollups_frame(ctx.engine, t, res_s, start, end) for t in (a_id, b_id))
-        merged = a[["mean", "flag_max"]].join(b[["mean", "flag_max"]], how="inner",
-                                                lsuffix="_a", rsuffix="_b")
-        merged = merged.rename(columns={"mean_a": "value_a", "mean_b": "value_b",
-                                        "flag_max_a": "flag_a", "flag_max_b": "flag_b"})
+        cols = {"mean": "value", "flag_max": "flag"}
+        merged = a[list(cols)].rename(columns=cols).add_suffix("_a").join(
+            b[list(cols)].rename(columns=cols).add_suffix("_b"), how="inner")
         source = "rollup means"
         note = f"difference of {res_s // 60} min bucket means"
     merged = merged.dropna(subset=["value_a", "value_b"])
