@@ -229,17 +229,26 @@ def hint(key: str | None, fishway_id: str) -> str:
 def change(_apply: int | None, _revert: int | None, _mode: int | None, fishway_id: str,
            key: str | None, value: str | None, note: str | None, mode: str | None,
            version: int | None) -> tuple[str, str, Any]:
-    """Apply, revert or set the mode (supervisors only, checked here on the server)."""
+    """Apply, revert or set the mode (supervisors only, checked on the server)."""
+    action = {SITE_MODE_APPLY: "mode", SITE_REVERT: "revert"}.get(ctx.triggered_id, "apply")
+    return handle_change(action, fishway_id, key, value, note, mode, version)
+
+
+def handle_change(action: str, fishway_id: str, key: str | None, value: str | None,
+                  note: str | None, mode: str | None, version: int | None
+                  ) -> tuple[str, str, Any]:
+    """What :func:`change` does for ``action`` ``apply``, ``revert`` or ``mode``: the
+    feedback text, its class and the new version (``no_update`` when nothing changed)."""
     try:
         user = auth.require("supervisor")
         app = current()
         when = overview_service.now()
-        if ctx.triggered_id == SITE_MODE_APPLY:
+        if action == "mode":
             message = service.change_setting(app.site, app.engine, user, fishway_id, "mode",
                                              mode or "", now=when, note=(note or "").strip())
         elif not key:
             return "Choose a setting first.", "feedback error", no_update
-        elif ctx.triggered_id == SITE_REVERT:
+        elif action == "revert":
             message = service.revert_setting(app.site, app.engine, user, fishway_id, key,
                                              now=when)
         else:

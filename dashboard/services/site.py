@@ -350,8 +350,8 @@ def _text(value: float | None, param: Parameter, units: str) -> str:
 def change_setting(site: Site, engine: Any, user: Mapping[str, str], fishway_id: str,
                    key: str, text: str, *, now: datetime, note: str = "") -> str:
     """Set one parameter of a fishway from the text a supervisor typed; return the message
-    for the page. ValueError (with the reason) when the value is refused; nothing is stored
-    then. The caller has checked the role (``auth.require("supervisor")``)."""
+    for the page. ValueError (with the reason) when the value is refused or changes nothing;
+    nothing is stored then. The caller has checked the role (``auth.require("supervisor")``)."""
     eff = effective_site(site, engine)
     if fishway_id not in eff.fishways:
         raise ValueError(f"no fishway {fishway_id!r}")
@@ -366,7 +366,7 @@ def change_setting(site: Site, engine: Any, user: Mapping[str, str], fishway_id:
             raise ValueError(f"mode must be one of {', '.join(MODES)}")
         old = eff.modes[fishway_id]
         if new == old:
-            return f"{fw_site.name} is already {MODE_LABELS[new].lower()}; nothing changed"
+            raise ValueError(f"{fw_site.name} is already {MODE_LABELS[new].lower()}")
         record_setting_change(engine, db_id, key, now, action="set", set_by=author,
                               old_text=old, new_text=new, note=note)
         message = f"{fw_site.name}: mode {MODE_LABELS[old]} → {MODE_LABELS[new]}"
@@ -386,12 +386,13 @@ def change_setting(site: Site, engine: Any, user: Mapping[str, str], fishway_id:
 
 def revert_setting(site: Site, engine: Any, user: Mapping[str, str], fishway_id: str,
                    key: str, *, now: datetime) -> str:
-    """Return one parameter to the site file's value; the message for the page."""
+    """Return one parameter to the site file's value; the message for the page. ValueError
+    when it has the site file's value already, or the other overrides need it."""
     eff = effective_site(site, engine)
     fw_site = site.fishway(fishway_id)
     param = parameter(fw_site, key)
     if key not in eff.overrides.get(fishway_id, {}):
-        return f"{fw_site.name}: {param.label} already has the site file's value"
+        raise ValueError(f"{fw_site.name}: {param.label} has the site file's value already")
     units, db_id = site.site.units, eff.db_ids[fishway_id]
     if key == "mode":
         record_setting_change(engine, db_id, key, now, action="revert", set_by=user["name"],
