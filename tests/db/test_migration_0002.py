@@ -45,7 +45,7 @@ def test_upgrade_from_0001_keeps_data(empty_db_url):
         before = _counts(engine)
         frame_before = readings_frame(engine, tag, T0, T0 + timedelta(days=1))
 
-        assert upgrade(engine) == head_revision() == "0002_setting_changes"
+        assert upgrade(engine, "0002_setting_changes") == "0002_setting_changes"
         assert current_revision(engine) == "0002_setting_changes"
         assert _counts(engine) == before
         assert readings_frame(engine, tag, T0, T0 + timedelta(days=1)).equals(frame_before)
@@ -55,6 +55,9 @@ def test_upgrade_from_0001_keeps_data(empty_db_url):
         assert store_batch(engine, [(tag, T0.timestamp() + 10_000, 77.0, 1)]) == 1
         assert setting_overrides(engine)[1] == {fw: {"targets.entrance_head.max":
                                                      (0.427, None)}}
+        # later revisions build on it and keep its rows
+        assert upgrade(engine) == head_revision()
+        assert len(setting_changes_frame(engine)) == 1
     finally:
         engine.dispose()
 
