@@ -45,7 +45,8 @@ _log = logging.getLogger("db.alarm")
 
 
 class Notifier(Protocol):
-    """What the evaluator tells after each committed evaluation (:class:`db.notify.EmailNotifier`)."""
+    """What the evaluator tells after each committed evaluation
+    (:class:`db.notify.EmailNotifier`)."""
 
     def notify(self, events: list[AlarmEvent], now: datetime, flood: FloodStatus) -> int:
         ...

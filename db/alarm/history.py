@@ -120,7 +120,7 @@ def alarm_performance_report(engine: Engine, start: datetime, end: datetime,
     if not lo < hi:
         raise ValueError("end must be after start")
     period = alarm_history_frame(engine, lo, hi, fishway=fishway)
-    stmt, a, e, f = _select()
+    stmt, _, e, f = _select()
     last = (sa.select(sa.func.max(e.c.id)).where(e.c.ts < lo,
                                                  e.c.kind.in_(("raised", "cleared")))
             .group_by(e.c.alarm_id))

@@ -77,9 +77,10 @@ def feed_status(row: Mapping[str, object]) -> FeedStatus:
 
     >>> from datetime import UTC, datetime
     >>> t = datetime(2026, 7, 1, tzinfo=UTC)
-    >>> feed_status({"last_success_at": t, "last_error_at": t.replace(hour=1),
-    ...              "last_error": "timed out"})
-    FeedStatus(ok=False, last_success=datetime.datetime(2026, 7, 1, 0, 0, tzinfo=datetime.timezone.utc), error='timed out')
+    >>> st = feed_status({"last_success_at": t, "last_error_at": t.replace(hour=1),
+    ...                   "last_error": "timed out"})
+    >>> st.ok, st.last_success == t, st.error
+    (False, True, 'timed out')
     """
     def when(x: object) -> datetime | None:
         return None if x is None or pd.isna(x) else pd.Timestamp(x).to_pydatetime()

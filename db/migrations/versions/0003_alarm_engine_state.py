@@ -18,10 +18,11 @@ What it adds (:mod:`db.alarm` uses it):
   ``limit_changed`` (the engine emits it for a supervisor's limit edit).
 
 The new kind changes the ``kind`` CHECK constraint of ``alarm_events``. PostgreSQL swaps the
-constraint in place (under the name 0001 gave it). SQLite cannot alter a constraint, so there the table is rebuilt: a new
-table with the new constraint and columns, every row copied as it was (ids included), the old
-table dropped (a drop fires no DELETE trigger), the new one renamed, its indexes and its
-append-only triggers made again; the rows are kept, none is changed.
+constraint in place (under the name 0001 gave it). SQLite cannot alter a constraint, so there
+the table is rebuilt: a new table with the new constraint and columns, every row copied as it
+was (ids included), the old table dropped (a drop fires no DELETE trigger), the new one
+renamed, its indexes and its append-only triggers made again; the rows are kept, none is
+changed.
 
 Rules for fishway migrations: a migration only adds (tables, nullable columns or columns with
 a server default, indexes, partitions); it never drops or rewrites data.

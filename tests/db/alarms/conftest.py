@@ -8,6 +8,7 @@ the ingest would; the evaluator then reads them back from the database.
 """
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping
 from datetime import UTC, datetime, timedelta
 
@@ -64,8 +65,9 @@ class Feeder:
         values = {**self.values, **{k.replace("__", "."): v for k, v in changes.items()}}
         rows = []
         for name, v in values.items():
-            flag = (flags or {}).get(name, 9 if v != v else 1)
-            rows.append((self.tag_ids[name], t, None if v != v else v, flag))
+            missing = math.isnan(v)
+            flag = (flags or {}).get(name, 9 if missing else 1)
+            rows.append((self.tag_ids[name], t, None if missing else v, flag))
         store_batch(self.engine, rows)
         for feed in self.site.ingest.feeds:
             update_feed_health(self.engine, feed.id, t, ok=True, readings_per_min=6.0,

@@ -45,20 +45,20 @@ START = datetime(2026, 7, 1, tzinfo=UTC)
 OUTAGE = (START + timedelta(hours=18), START + timedelta(hours=18, minutes=20))
 
 
-def H(h: float) -> datetime:
+def hour(h: float) -> datetime:
     return START + timedelta(hours=h)
 
 
 EXPECTED = {
     # key: (not before, not after) the scenario's cause
-    "temp_high@east": (H(2), H(11)),
-    "temp_high_high@east": (H(2), H(11)),
-    "temp_high_high@west": (H(2), H(11)),
-    "do_low@east": (H(12), H(16)), "do_low@west": (H(12), H(16)),
-    "do_low_low@east": (H(12), H(16)), "do_low_low@west": (H(12), H(16)),
-    "do_sat_low@east": (H(12), H(16)), "do_sat_low@west": (H(12), H(16)),
-    "do_sat_low_low@east": (H(12), H(16)), "do_sat_low_low@west": (H(12), H(16)),
-    "trash_rack_dp_high@west": (H(3), H(21)),
+    "temp_high@east": (hour(2), hour(11)),
+    "temp_high_high@east": (hour(2), hour(11)),
+    "temp_high_high@west": (hour(2), hour(11)),
+    "do_low@east": (hour(12), hour(16)), "do_low@west": (hour(12), hour(16)),
+    "do_low_low@east": (hour(12), hour(16)), "do_low_low@west": (hour(12), hour(16)),
+    "do_sat_low@east": (hour(12), hour(16)), "do_sat_low@west": (hour(12), hour(16)),
+    "do_sat_low_low@east": (hour(12), hour(16)), "do_sat_low_low@west": (hour(12), hour(16)),
+    "trash_rack_dp_high@west": (hour(3), hour(21)),
     "feed_comms@plant": OUTAGE,
 }
 CRITERIA_RULES = {"head_drop", "entrance_head", "exit_head", "power_density",
@@ -77,10 +77,10 @@ def day_site():
 def day(tmp_path_factory):
     site = day_site()
     scenario = Scenario(
-        warm_spells=(WarmSpell(H(2), H(11), peak_c=23.0, ramp_s=3600.0),),
-        low_oxygen=(LowOxygen(H(12), H(16), min_do_mg_l=3.8, ramp_s=1800.0),),
-        debris=(DebrisPulse(H(3), H(20), 20.0, "trash_rack", "west"),),
-        cleanings=(Cleaning(H(21), "trash_rack", "west"),),
+        warm_spells=(WarmSpell(hour(2), hour(11), peak_c=23.0, ramp_s=3600.0),),
+        low_oxygen=(LowOxygen(hour(12), hour(16), min_do_mg_l=3.8, ramp_s=1800.0),),
+        debris=(DebrisPulse(hour(3), hour(20), 20.0, "trash_rack", "west"),),
+        cleanings=(Cleaning(hour(21), "trash_rack", "west"),),
         faults=(Fault("*", "outage", *OUTAGE),), random_forebay_drops_per_day=0.0)
     plant = Plant(site, start=START, seed=3, scenario=scenario, profile_interval_s=300.0)
     folder = tmp_path_factory.mktemp("alarm-day")
@@ -109,8 +109,8 @@ def day(tmp_path_factory):
                 if abs(value - commanded[name]) > 1e-9:
                     plant.apply_setting(outcome.fishway_id, name, value, now)
 
-    runs = run_simulated(service, clock, H(24), after=operator)
-    events = alarm_history_frame(engine, START, H(25))
+    runs = run_simulated(service, clock, hour(24), after=operator)
+    events = alarm_history_frame(engine, START, hour(25))
     yield {"site": site, "engine": engine, "runs": runs, "calls": calls, "events": events}
     service.close()
     engine.dispose()
@@ -132,7 +132,7 @@ def test_the_scenario_raises_its_alarms_each_once_and_nothing_else(day):
         lo, hi = EXPECTED[key]
         assert lo <= ts <= hi, f"{key} raised at {ts}, outside its cause {lo}–{hi}"
     assert not set(day["events"]["rule"]) & CRITERIA_RULES  # not even a pending raise
-    perf, _ = alarm_performance_report(day["engine"], START, H(24))
+    perf, _ = alarm_performance_report(day["engine"], START, hour(24))
     assert perf.annunciations == len(EXPECTED) and perf.chattering == ()
     assert perf.flood_periods_pct == 0.0
 
@@ -159,5 +159,5 @@ def test_alarms_at_the_end_of_the_day(day):
     assert rows.loc["trash_rack_dp_high@west", "state"] == "rtn_unacknowledged"  # cleaned
     cleared = day["events"][(day["events"]["key"] == "trash_rack_dp_high@west")
                             & (day["events"]["kind"] == "cleared")]
-    assert len(cleared) == 1 and H(21) <= cleared.index[0] <= H(21.5)
+    assert len(cleared) == 1 and hour(21) <= cleared.index[0] <= hour(21.5)
     assert (rows["state"] == "unacknowledged").sum() == 0  # every cause has passed
