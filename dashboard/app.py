@@ -21,7 +21,7 @@ from dash import Dash, dcc, html
 from sqlalchemy.engine import Engine
 
 from dashboard import auth, ids
-from dashboard.context import AppContext, install
+from dashboard.context import AppContext, current, install
 from ops_logic.advisory import ADVISORY_CAUTION
 from ops_logic.ladder import Ladder
 from ops_logic.site import Site
@@ -44,14 +44,21 @@ NAV_PAGES: list[tuple[str, str]] = [
 def shell() -> html.Div:
     """The frame around every page: header with site, navigation, user; advisory banner."""
     registered = {p["path"] for p in dash.page_registry.values()}
+    try:
+        site_name = current().site.site.name
+    except RuntimeError:
+        site_name = "fishway-ops"
+    user = auth.current_user()
+    badge: list = ([f"{user['name']} ({user['role']}) · ", html.A("sign out", href="/logout")]
+                   if user else [html.A("sign in", href="/login")])
     return html.Div(className="shell", children=[
         dcc.Location(id=ids.URL),
         html.Header(className="topbar", children=[
-            html.Div(className="site-name", id="app-site-name"),
+            html.Div(site_name, className="site-name", id="app-site-name"),
             html.Nav(id=ids.NAV, className="nav", children=[
                 dcc.Link(label, href=path, className="nav-link")
                 for path, label in NAV_PAGES if path in registered]),
-            html.Div(id=ids.USER_BADGE, className="user-badge"),
+            html.Div(badge, id=ids.USER_BADGE, className="user-badge"),
         ]),
         html.Main(dash.page_container, className="page"),
         html.Footer(ADVISORY_CAUTION, className="advisory"),
