@@ -105,8 +105,11 @@ def trend_figure(series: Sequence[Series], units: UnitSystem, time_zone: str, *,
                                      "yanchor": "bottom",
                                      "font": {"size": 12, "color": colour}})
     tz_label = time_zone
+    extra_left = len([k for k in range(2, len(kinds)) if k % 2 == 0])
+    extra_right = len([k for k in range(3, len(kinds)) if k % 2 == 1])
     layout: dict = {
-        "height": 560, "margin": {"l": 80, "r": 80, "t": 40, "b": 50},
+        "height": 560,
+        "margin": {"l": 80 + 90 * extra_left, "r": 80 + 90 * extra_right, "t": 40, "b": 50},
         "paper_bgcolor": "#ececea", "plot_bgcolor": "#e6e6e3",
         "font": {"family": "DejaVu Sans, Arial, sans-serif", "size": 15, "color": "#1f2326"},
         "legend": {"orientation": "h", "y": 1.02, "yanchor": "bottom", "x": 0},

@@ -220,6 +220,7 @@ def fishway_fields(fishway: str) -> tuple[Any, Any, Any]:
           Output(LOG_VERSION, "data"), Output(LOG_TEXT, "value"),
           Output(LOG_GAUGE_READING, "value"), Output(LOG_REC, "data"),
           Output({"type": LOG_ADJ_TO, "name": ALL}, "value"),
+          Output({"type": LOG_ADJ_FROM, "name": ALL}, "value"),
           Input(LOG_SUBMIT, "n_clicks"),
           State(LOG_KIND, "value"), State(LOG_FISHWAY, "value"), State(LOG_WHEN, "value"),
           State(LOG_TEXT, "value"), State(LOG_TOPIC, "value"), State(LOG_GAUGE_WHERE, "value"),
@@ -240,7 +241,7 @@ def save(_clicks: int | None, kind: str, fishway: str, when: str | None, text: s
         user = auth.require("operator")
     except auth.PermissionDenied as exc:
         return (f"Not saved: {exc}.", "feedback error", no_update, no_update, no_update,
-                no_update, keep)
+                no_update, keep, keep)
     adjustments = {i["name"]: (a or "", b or "")
                    for i, a, b in zip(to_ids, froms, tos, strict=True)}
     form = LogForm(kind=kind, fishway_id=fishway, when=when or "", text=text or "",
@@ -250,13 +251,17 @@ def save(_clicks: int | None, kind: str, fishway: str, when: str | None, text: s
     result = submit(current(), user["name"], form, now_utc())
     if not result.ok:
         return (html.Ul([html.Li(p) for p in result.problems]), "feedback error", no_update,
-                no_update, no_update, no_update, keep)
-    cleared = [""] * len(tos) if kind == "adjustment" else keep
+                no_update, no_update, no_update, keep, keep)
+    if kind == "adjustment":  # the actuators now stand where they were moved to
+        cleared = [""] * len(tos)
+        moved = [b if (b or "").strip() else (a or "") for a, b in zip(froms, tos, strict=True)]
+    else:
+        cleared = moved = keep
     return (" ".join(result.messages), "feedback ok", (version or 0) + 1, "", "",
-            None if kind == "adjustment" else no_update, cleared)
+            None if kind == "adjustment" else no_update, cleared, moved)
 
 
-def _entry_row(e: Any) -> Any:
+def _entry_row(e: Any, can_write: bool = True) -> Any:
     details: list[Any] = [e.details] if e.details else []
     if e.flagged:
         details += [" ", html.Span("FLAGGED: differs from the sensor", className="flag-badge")]
@@ -267,7 +272,8 @@ def _entry_row(e: Any) -> Any:
         html.Td(f"#{e.id}", className="num"), html.Td(e.when), html.Td(e.author),
         html.Td(e.kind), html.Td(e.fishway), html.Td(details),
         html.Td(e.text, className="log-entry-text"),
-        html.Td(dcc.Link("correct…", href=f"/log?kind=correction&refers_to={e.id}"))])
+        html.Td(dcc.Link("correct…", href=f"/log?kind=correction&refers_to={e.id}")
+                if can_write else "")])
 
 
 @callback(Output(LOG_LIST, "children"), Input(LOG_FILTER_FISHWAY, "value"),
@@ -286,5 +292,6 @@ def show_entries(fishway: str, kinds: list[str], author: str | None, text: str |
         return html.P("No entries match.", className="muted")
     head = html.Thead(html.Tr([html.Th(h) for h in ("#", "Time", "Author", "Kind", "Fishway",
                                                     "Details", "Text", "")]))
+    can_write = auth.has_role("operator")
     return html.Table(className="grid-table log-list", children=[
-        head, html.Tbody([_entry_row(e) for e in entries])])
+        head, html.Tbody([_entry_row(e, can_write) for e in entries])])

@@ -33,6 +33,7 @@ PROFILE_STATUS = "profile-status"
 PROFILE_HEADLINE = "profile-headline"
 PROFILE_DETAILS = "profile-details"
 PROFILE_SELECTED = "profile-selected"
+PROFILE_DRAWN = "profile-drawn"  # the fishway whose full figure the graph holds
 PROFILE_REFRESH = "profile-refresh"
 
 REFRESH_MS = 30_000
@@ -62,7 +63,7 @@ def layout(fishway: str | None = None, **_: Any) -> Any:
             html.Aside(id=PROFILE_DETAILS, className="panel profile-details",
                        children=html.P(_HINT)),
         ]),
-        dcc.Store(id=PROFILE_SELECTED),
+        dcc.Store(id=PROFILE_SELECTED), dcc.Store(id=PROFILE_DRAWN),
         dcc.Interval(id=PROFILE_REFRESH, interval=REFRESH_MS),
     ])
 
@@ -79,23 +80,25 @@ def _status(state: Any, why: str | None) -> Any:
 
 
 @callback(Output(PROFILE_GRAPH, "figure"), Output(PROFILE_STATUS, "children"),
-          Output(PROFILE_HEADLINE, "children"),
+          Output(PROFILE_HEADLINE, "children"), Output(PROFILE_DRAWN, "data"),
           Input(PROFILE_FISHWAY, "value"), Input(PROFILE_REFRESH, "n_intervals"),
-          State(PROFILE_SELECTED, "data"))
-def render(fishway: str, _n: int | None, selected: dict | None) -> tuple[Any, Any, Any]:
-    """Draw the profile (a fishway change) or patch its data (a refresh)."""
+          State(PROFILE_SELECTED, "data"), State(PROFILE_DRAWN, "data"))
+def render(fishway: str, _n: int | None, selected: dict | None,
+           drawn: str | None = None) -> tuple[Any, Any, Any, Any]:
+    """Draw the profile (a fishway change, or nothing drawn yet) or patch its data (a
+    refresh of the fishway already drawn)."""
     app = current()
     ladder = app.ladder(fishway)
     state = live_state(app, fishway, now_utc())
     profile, why = solve_live(ladder, state)
     if profile is None:
-        return {}, _status(state, why), []
+        return {}, _status(state, why), [], None
     pick = selected.get("pool") if selected and selected.get("fishway") == fishway else None
     fig = profile_figure(ladder, profile, state.measured, app.units, selected=pick,
                          tolerance_m=ladder.fishway.alarms.gauge_disagree.limit_m)
-    refresh = ctx.triggered_id == PROFILE_REFRESH
-    return (figure_patch(fig) if refresh else fig), _status(state, None), headline(
-        ladder, profile, app.units)
+    patch = ctx.triggered_id == PROFILE_REFRESH and drawn == fishway
+    return ((figure_patch(fig) if patch else fig), _status(state, None),
+            headline(ladder, profile, app.units), fishway)
 
 
 @callback(Output(PROFILE_DETAILS, "children"), Output(PROFILE_SELECTED, "data"),

@@ -287,9 +287,26 @@ def test_save_callback_records_the_signed_in_author(fresh):
     finally:
         ctx.pop()
     assert out[1] == "feedback ok" and out[2] == 4  # the list is asked to refresh
+    assert out[6] == out[7] == []  # no adjustment rows sent: nothing to clear
     newest = _entries(fresh.engine)
     row = newest[newest["text"] == "handover: all normal"].iloc[0]
     assert row["author"] == "op1" and row["kind"] == "shift_note"
+
+
+def test_saving_an_adjustment_moves_the_from_fields(fresh):
+    ctx = _request(fresh.app, {"name": "op1", "role": "operator"})
+    try:
+        out = fresh.page.save(1, "adjustment", "east", "", "valve opened for attraction",
+                              "staff_gauge", None, "", None, "", None, ["35.9", ""],
+                              ["41", ""], [{"type": "log-adj-to", "name": "aux_G1_opening_pct"},
+                                           {"type": "log-adj-to", "name": "aux_PS1_pumps"}], 0)
+    finally:
+        ctx.pop()
+    assert out[1] == "feedback ok"
+    assert out[6] == ["", ""] and out[7] == ["41", ""]  # "to" cleared, "from" = new position
+    row = _entries(fresh.engine, author="op1").iloc[0]
+    assert (row["actuator"], row["from_value"], row["to_value"]) == ("aux_G1_opening_pct",
+                                                                      35.9, 41.0)
 
 
 def test_user_text_is_rendered_as_text(fresh):

@@ -228,15 +228,18 @@ def test_render_draws_then_refresh_patches_only_data(fresh, monkeypatch):
     monkeypatch.setattr(page, "now_utc", lambda: NOW)
     token = _triggered("profile-fishway.value")
     try:
-        fig, status, bullets = page.render("east", None, None)
+        fig, status, bullets, drawn = page.render("east", None, None, None)
     finally:
         context_value.reset(token)
     assert [t.name for t in fig.data][:2] == ["water", "floor"] and len(bullets) >= 6
+    assert drawn == "east" and "Levels as of" in str(status)
     token = _triggered("profile-refresh.n_intervals")
     try:
-        patch, _, _ = page.render("east", 1, {"fishway": "east", "pool": 3})
+        patch, _, _, _ = page.render("east", 1, {"fishway": "east", "pool": 3}, "east")
+        full, _, _, _ = page.render("east", 2, None, None)  # nothing drawn yet: a full figure
     finally:
         context_value.reset(token)
+    assert not isinstance(full, Patch) and full.data[0].name == "water"
     assert isinstance(patch, Patch)
     json.dumps(patch.to_plotly_json(), cls=PlotlyJSONEncoder)  # what Dash sends
     ops = patch.to_plotly_json()["operations"]
@@ -244,8 +247,8 @@ def test_render_draws_then_refresh_patches_only_data(fresh, monkeypatch):
     assert touched <= {("data",), ("layout",)}
     assert all(o["location"][:2] == ["layout", "annotations"] for o in ops
                if o["location"][0] == "layout")  # axes, shapes and zoom are left alone
-    empty, status, _ = page.render("west", None, None)
-    assert empty == {} and "No profile" in str(status)
+    empty, status, _, drawn = page.render("west", None, None, None)
+    assert empty == {} and "No profile" in str(status) and drawn is None
 
 
 def test_clicking_a_pool_shows_its_details(fresh, monkeypatch):
