@@ -124,8 +124,11 @@ def trend_figure(series: Sequence[Series], units: UnitSystem, time_zone: str, *,
                       "gridcolor": "#cfd0cc" if k == 0 else None, "showgrid": k == 0,
                       "zeroline": False}
         if k > 0:
-            axis.update(overlaying="y", side="right" if k % 2 else "left", anchor="free",
-                        autoshift=True, tickmode="auto")
+            right = bool(k % 2)
+            axis.update(overlaying="y", side="right" if right else "left", anchor="free",
+                        autoshift=True, tickmode="auto",
+                        # clear of the neighbouring axis' title too (autoshift pads the ticks)
+                        shift=(60 if right else -60) if k > 1 else None)
         layout["yaxis" if k == 0 else f"yaxis{k + 1}"] = axis
     fig.update_layout(**layout)
     return fig

@@ -61,6 +61,7 @@ def test_log_an_adjustment_from_the_recommendation(sign_in, live_server, seeded_
                                                    screens, console):
     from db.dashboard_queries import log_entries
 
+    began = datetime.now(UTC) - timedelta(seconds=1)
     page = sign_in("op1")
     page.set_viewport_size({"width": 1600, "height": 1100})
     page.goto(f"{live_server}/setpoints")
@@ -84,8 +85,9 @@ def test_log_an_adjustment_from_the_recommendation(sign_in, live_server, seeded_
     row = page.locator(".log-list tbody tr").first.inner_text()
     assert "op1" in row and "Adjustment" in row
     page.screenshot(path=screens / "log.png", full_page=True)
-    stored = log_entries(seeded_engine, author="op1", kinds=["adjustment"])
+    stored = log_entries(seeded_engine, start=began, author="op1", kinds=["adjustment"])
     assert len(stored) == len(prefilled)
+    assert set(stored["text"]) == {"As recommended on the setpoints page."}
     assert console == []
 
 
