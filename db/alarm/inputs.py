@@ -106,6 +106,7 @@ class InputReader:
             self._role.setdefault((t.fishway_id, t.role), []).append(t)
         self._statements()
         self._profiles: dict[str, Profile] = {}
+        self._profile_keys: dict[str, tuple] = {}
         self._temp_at: int | None = None
         self._temp: dict[str, float | None] = {}
         self.problems: list[str] = []
@@ -268,15 +269,18 @@ class InputReader:
         dp = self._usable(readings, fid, "trash_rack_dp", max_age)
         temp = self._usable(readings, fid, "water_temp", max_age)
         forebay = fb.value - max(dp.value, 0.0) if dp is not None else fb.value
+        temperature = temp.value if temp else DEFAULT_TEMPERATURE_C
+        key = (forebay, tw.value, temperature, tuple(sorted(positions.items())))
+        if fid in self._profiles and self._profile_keys.get(fid) == key:
+            return self._profiles[fid]  # the same inputs as last time (a second evaluation)
         try:
-            p = ladder.solve(forebay, tw.value, positions,
-                             temperature_c=temp.value if temp else DEFAULT_TEMPERATURE_C,
+            p = ladder.solve(forebay, tw.value, positions, temperature_c=temperature,
                              warm=self._profiles.get(fid))
         except (ValueError, SettingError, ArithmeticError) as exc:
             self.problems.append(f"{fid}: no profile: the solver failed: {exc}")
             self._profiles.pop(fid, None)
             return None
-        self._profiles[fid] = p
+        self._profiles[fid], self._profile_keys[fid] = p, key
         return p
 
     def _recommendation(self, fid: str, ladder: Ladder, row: dict | None,
