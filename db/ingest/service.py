@@ -7,9 +7,11 @@ wires the same methods to APScheduler for real time):
 
 - ``poll_once(now, groups=None) -> PollReport``: for each poll group (tags of one feed with one
   poll period; all groups when ``groups`` is None) one bulk ``feed.read``; after an outage, or
-  at the first poll after a start with readings stored, a feed with history is first asked
-  for ``feed.history(tags, since, now)`` (``since``: the time up to which the group's readings
-  are complete, at most ``max_backfill_s`` back). Backfill and live readings are QC'd
+  at the first poll after a start with readings stored, a feed with history is also asked
+  for ``feed.history(tags, since, until)`` (``since``: the time up to which the group's
+  readings are complete, at most ``max_backfill_s`` back; ``until``: the newest time stamp of
+  the live read, or ``now`` if later; the read comes first, so it is what tells the feed is
+  back, and nothing the source recorded while it reconnected is missed). Backfill and live readings are QC'd
   (:mod:`db.ingest.live_qc`) and stored as one batch (:func:`db.readings.store_batch`: raw
   readings and rollups, atomic, idempotent, so overlaps are harmless), re-flags are applied,
   a CSV drop folder is committed, and the feed's health is written
@@ -339,9 +341,12 @@ class IngestService:
         history: list[FeedReading] = []
         if group.needs_backfill:
             since = self._complete_through(group, now)
+            # up to the newest live reading: the source may have moved on since ``now``
+            until = max((r.ts for r in live), default=now)
+            until = max(until, now)
             try:
-                if since is not None and since < now and feed.supports_history:
-                    history = feed.history(group.tags, since, now)
+                if since is not None and since < until and feed.supports_history:
+                    history = feed.history(group.tags, since, until)
             except Exception as exc:
                 report.errors[key.feed_id] = self._feed_failed(key, now, exc,
                                                                "backfill failed")
