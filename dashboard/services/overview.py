@@ -6,9 +6,10 @@ the latest usable forebay and tailwater readings (QARTOD flag 1 or 2, no older t
 settings last logged in ``actuator_settings`` when a position tag has no usable reading) go to
 ``Ladder.solve`` of the fishway *in force* (site file plus supervisors' overrides,
 :func:`dashboard.services.site.effective_site`). A solve takes about a millisecond on the demo's
-40-pool ladder, and results are cached by their rounded inputs, so a refresh costs a few small
-queries. The entrance head and the exit weir head are taken from the gauges where they exist
-(entrance-pool gauge − tailwater; forebay − exit crest position), as the alarm rules take them;
+40-pool ladder (less warm-started from the ladder's previous profile, as each refresh is), and
+results are cached by their rounded inputs. The entrance head and the exit weir head are taken
+from the gauges where they exist (entrance-pool gauge − tailwater; forebay − exit crest
+position), as the alarm rules take them;
 flows, the worst pool head drop and the power densities come from the solved profile. The
 gauged pool levels are compared with the profile as a check of the model and the gauges.
 
@@ -237,6 +238,8 @@ _lock = threading.Lock()
 _catalogue: dict[tuple, tuple[Site, Any, float, dict[str, tuple[TagDef, int, float]]]] = {}
 _solves: OrderedDict[tuple, tuple[Ladder, Profile | Exception]] = OrderedDict()
 _t7: dict[tuple, float | None] = {}
+_last: dict[int, tuple[Ladder, Profile]] = {}
+"""The newest profile of each ladder: the warm start of its next solve."""
 
 
 def _tags(site: Site, engine: Any) -> dict[str, tuple[TagDef, int, float]]:
@@ -267,12 +270,16 @@ def _solve(ladder: Ladder, version: int, forebay: float, tailwater: float,
         if hit is not None:
             _solves.move_to_end(key)
     if hit is None:
+        prev = _last.get(id(ladder))
+        warm = prev[1] if prev is not None and prev[0] is ladder else None
         try:
-            hit = ladder.solve(forebay, tailwater, settings, temperature_c=temp_c)
+            hit = ladder.solve(forebay, tailwater, settings, temperature_c=temp_c, warm=warm)
         except ValueError as exc:  # SettingError included: refused inputs
             hit = exc
         with _lock:
             _solves[key] = (ladder, hit)
+            if isinstance(hit, Profile) and hit.state == "flowing":
+                _last[id(ladder)] = (ladder, hit)
             while len(_solves) > _SOLVE_CACHE_SIZE:
                 _solves.popitem(last=False)
     if isinstance(hit, Exception):
