@@ -16,7 +16,7 @@ import hashlib
 from typing import Any
 
 import dash
-from dash import ALL, Input, Output, State, callback, ctx, dcc, html, no_update
+from dash import ALL, Input, Output, Patch, State, callback, ctx, dcc, html, no_update
 
 from dashboard import auth
 from dashboard.context import current
@@ -89,8 +89,11 @@ ALARMS_PERF_PRIORITY = "alarms-perf-priority"
 REFRESH_MS = 15_000
 PERIODS = {"1": "1 h", "8": "8 h", "24": "24 h", "168": "7 days", "720": "30 days",
            "custom": "from – to"}
+_TITLES = {"value": "The value judged when the alarm last changed state (alarm rows are "
+                    "stored at each change, not at every evaluation)",
+           "since": "When the condition last became active (site time)"}
 COLUMNS = (("priority", "Priority"), ("state", "State"), ("fishway", "Fishway"),
-           ("alarm", "Alarm and message"), ("value", "Value"), ("since", "Active since"),
+           ("alarm", "Alarm and message"), ("value", "Value at change"), ("since", "Active since"),
            ("acknowledged", "Acknowledged"))
 _BUTTON_ACTION = {ALARMS_ACK: "acknowledge", ALARMS_SHELVE: "shelve",
                   ALARMS_UNSHELVE: "unshelve", ALARMS_OOS: "remove_from_service",
@@ -259,7 +262,7 @@ def layout(**_query: Any) -> Any:
         ]),
         dcc.Store(id=ALARMS_VERSION, data=0), dcc.Store(id=ALARMS_SELECTED, data=[]),
         dcc.Store(id=ALARMS_EXPANDED, data=[]), dcc.Store(id=ALARMS_SORT, data={}),
-        dcc.Store(id=ALARMS_SIG, data=""),
+        dcc.Store(id=ALARMS_SIG, data={}),
         dcc.Interval(id=ALARMS_REFRESH, interval=REFRESH_MS),
     ])
 
@@ -269,8 +272,9 @@ def _header(sort: dict) -> html.Thead:
     cells: list[Any] = [html.Th("", className="al-pick-col")]
     for col, label in COLUMNS:
         mark = (" ▼" if sort.get("desc") else " ▲") if sort.get("col") == col else ""
+        title = f"Sort by {label.lower()}" + (f". {_TITLES[col]}" if col in _TITLES else "")
         cells.append(html.Th(html.Button(label + mark, id={"type": ALARMS_SORT_BY, "col": col},
-                                         className="al-sort", title=f"Sort by {label.lower()}")))
+                                         className="al-sort", title=title)))
     return html.Thead(html.Tr(cells))
 
 
@@ -324,6 +328,40 @@ def _modes(view: service.ActiveView) -> html.Table:
         for f in site.fishways])])
 
 
+def _digest(obj: object) -> str:
+    return hashlib.sha1(repr(obj).encode()).hexdigest()
+
+
+def table_update(rows: list[tuple[service.AlarmRow, int]], any_alarms: bool, sort: dict,
+                 expanded: list[str], selected: list[str], version: int | None,
+                 sig: dict | None) -> tuple[Any, dict]:
+    """The table's new content and signature. When the same alarms are listed in the same
+    order as last time, only the rows whose content changed are sent (a ``dash.Patch`` of
+    those rows; ``no_update`` when none did); otherwise the whole table."""
+    opened, chosen = set(expanded), set(selected)
+    frame = _digest((sort, sorted(opened), version, [(r.key, d) for r, d in rows]))
+    row_sigs = [_digest((r, d, r.key in opened)) for r, d in rows]
+    new = {"frame": frame, "rows": row_sigs}
+    old = sig or {}
+    if old.get("frame") == frame and not rows:
+        return no_update, new
+    if rows and old.get("frame") == frame and len(old.get("rows", [])) == len(rows):
+        changed = [i for i, (a, b) in enumerate(zip(old["rows"], row_sigs, strict=True))
+                   if a != b]
+        if not changed:
+            return no_update, new
+        patch = Patch()
+        for i in changed:
+            r, d = rows[i]
+            patch["props"]["children"][1]["props"]["children"][i] = _row(r, d, chosen, opened)
+        return patch, new
+    if not rows:
+        return html.P("No alarms match." if any_alarms else "No active alarms.",
+                      className="al-none"), new
+    return html.Table(className="grid-table al-table", children=[
+        _header(sort), html.Tbody([_row(r, d, chosen, opened) for r, d in rows])]), new
+
+
 @callback(Output(ALARMS_TABLE, "children"), Output(ALARMS_SIG, "data"),
           Output(ALARMS_SUMMARY, "children"), Output(ALARMS_FLOOD, "children"),
           Output(ALARMS_FLOOD, "className"), Output(ALARMS_PROBLEM, "children"),
@@ -336,28 +374,19 @@ def _modes(view: service.ActiveView) -> html.Table:
 def refresh(_n: int | None, _version: int | None, fishway: str | None,
             priorities: list[int] | None, shows: list[str] | None, text: str | None,
             sort: dict | None, expanded: list[str] | None, selected: list[str] | None,
-            sig: str | None) -> tuple[Any, ...]:
-    """The active list, summary, flood banner and modes; the table is sent only when what
-    it shows changed."""
+            sig: dict | None) -> tuple[Any, ...]:
+    """The active list, summary, flood banner and modes; of the table only what changed is
+    sent (:func:`table_update`)."""
     if auth.current_user() is None:
-        return (html.P("Sign in to see the alarms."), "", "", "", "al-flood is-hidden", "",
+        return (html.P("Sign in to see the alarms."), {}, "", "", "al-flood is-hidden", "",
                 "al-problem is-hidden", "")
     app = current()
     view = service.active_view(app, now_utc())
     rows = service.visible_rows(view, fishway=fishway or "", priorities=priorities or [],
                                 shows=shows or [], text=text or "", sort=sort or {},
                                 expanded=expanded or [])
-    new_sig = hashlib.sha1(repr((rows, sort, sorted(expanded or []), _version)).encode()
-                           ).hexdigest()
-    table: Any = no_update
-    if new_sig != sig:
-        if rows:
-            chosen, opened = set(selected or []), set(expanded or [])
-            table = html.Table(className="grid-table al-table", children=[
-                _header(sort or {}), html.Tbody([_row(r, d, chosen, opened) for r, d in rows])])
-        else:
-            table = html.P("No alarms match." if view.rows else
-                           "No active alarms.", className="al-none")
+    table, new_sig = table_update(rows, bool(view.rows), sort or {}, expanded or [],
+                                  selected or [], _version, sig)
     flood, flood_cls = "", "al-flood is-hidden"
     if view.flood is not None:
         f = view.flood

@@ -26,7 +26,8 @@ events into ``unacknowledged``, in fixed periods from the start), the top 10 and
 split beside the ~80/15/5 % target.
 
 Values are shown in the site's display units (SI beside US units); alarm messages are the
-engine's text, in SI.
+engine's text, in SI. An alarm's row is stored when its state changes (:mod:`db.alarm.store`),
+so its value and message are those of its last change, not of the latest evaluation.
 """
 
 from __future__ import annotations
@@ -248,15 +249,18 @@ class ActiveView:
     problem: str | None
 
 
-_IDS: dict[tuple[int, str], SiteIds] = {}
-_TAG_UNITS: dict[str, dict[str, str]] = {}
+_IDS: dict[int, tuple[object, object, SiteIds]] = {}
+_TAG_UNITS: dict[int, tuple[object, dict[str, str]]] = {}
 
 
 def _ids(ctx: AppContext) -> SiteIds:
-    key = (id(ctx.engine), ctx.site.site.name)
-    if key not in _IDS:
-        _IDS[key] = site_ids(ctx.engine, ctx.site)
-    return _IDS[key]
+    """The site's database ids, cached per engine and site (the cache keeps both, so an
+    ``id`` is never reused for another database)."""
+    hit = _IDS.get(id(ctx.engine))
+    if hit is None or hit[0] is not ctx.engine or hit[1] is not ctx.site:
+        hit = (ctx.engine, ctx.site, site_ids(ctx.engine, ctx.site))
+        _IDS[id(ctx.engine)] = hit
+    return hit[2]
 
 
 def _service(ctx: AppContext) -> AlarmService:
@@ -265,10 +269,11 @@ def _service(ctx: AppContext) -> AlarmService:
 
 
 def _tag_units(ctx: AppContext) -> dict[str, str]:
-    name = ctx.site.site.name
-    if name not in _TAG_UNITS:
-        _TAG_UNITS[name] = {t.name: t.unit for t in site_tags(ctx.site)}
-    return _TAG_UNITS[name]
+    hit = _TAG_UNITS.get(id(ctx.site))
+    if hit is None or hit[0] is not ctx.site:
+        hit = (ctx.site, {t.name: t.unit for t in site_tags(ctx.site)})
+        _TAG_UNITS[id(ctx.site)] = hit
+    return hit[1]
 
 
 def _num(x: object) -> float | None:

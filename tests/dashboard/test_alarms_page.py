@@ -64,6 +64,22 @@ def quiet_inputs(site):
     return values, fishways, tags
 
 
+def evaluate_stored(store, quiet, now: datetime, stale: tuple[str, ...] = (),
+                    feed_ok: bool = True, last_success: datetime | None = None,
+                    **changes: float) -> None:
+    """One evaluation of ``store``'s engine at ``now`` on the ``quiet`` inputs with
+    ``changes`` (``east__do=4.5`` for ``east.do``); ``stale`` tags are 400 s old."""
+    from ops_logic.alarms.inputs import AlarmInputs, FeedStatus, TagValue
+
+    values, fishways = quiet[:2]
+    v = {**values, **{k.replace("__", "."): x for k, x in changes.items()}}
+    readings = {n: TagValue(x, 1, 400.0 if n in stale else 5.0) for n, x in v.items()}
+    feed = FeedStatus(feed_ok, now if feed_ok else last_success, "" if feed_ok else
+                      "read timed out")
+    with store.session(now) as s:
+        s.add(s.alarm_engine.evaluate(now, AlarmInputs(readings, fishways, {"plant": feed})))
+
+
 def build_scenario(engine, site, t0: datetime) -> dict[str, str]:
     """Store a busy quarter of an hour from ``t0`` through the alarm engine (the evaluations
     of :class:`db.alarm.store.AlarmStore` and actions of :class:`db.alarm.service.AlarmService`):
@@ -83,7 +99,6 @@ def build_scenario(engine, site, t0: datetime) -> dict[str, str]:
     Returns the keys of interest by name."""
     from db.alarm.service import AlarmService
     from db.alarm.store import AlarmStore
-    from ops_logic.alarms.inputs import AlarmInputs, FeedStatus, TagValue
 
     values, fishways, tags = quiet_inputs(site)
     store = AlarmStore(engine, site)
@@ -93,14 +108,7 @@ def build_scenario(engine, site, t0: datetime) -> dict[str, str]:
 
     def evaluate(m: float, stale: tuple[str, ...] = (), feed_ok: bool = True,
                  **changes: float) -> None:
-        now = at(m)
-        v = {**values, **{k.replace("__", "."): x for k, x in changes.items()}}
-        readings = {n: TagValue(x, 1, 400.0 if n in stale else 5.0) for n, x in v.items()}
-        feed = FeedStatus(feed_ok, now if feed_ok else at(12.5), "" if feed_ok else
-                          "read timed out")
-        with store.session(now) as s:
-            s.add(s.alarm_engine.evaluate(now, AlarmInputs(readings, fishways,
-                                                           {"plant": feed})))
+        evaluate_stored(store, (values, fishways), at(m), stale, feed_ok, at(12.5), **changes)
 
     bad = {"east__do": 4.5, "west__trash_rack_dp": 0.3, "west__picket_dp": 0.3,
            "east__PS1__trip": 1.0}
@@ -456,6 +464,31 @@ def test_refresh_sends_the_table_only_when_it_changed(scene, monkeypatch):
     again = _as(scene, VIEW1, page.refresh, *args[:-1], sig)
     assert again[0] is page.no_update and again[1] == sig
     assert _as(scene, None, page.refresh, *args)[0].children == "Sign in to see the alarms."
+
+
+def test_a_refresh_sends_only_the_rows_that_changed(scene):
+    from dataclasses import replace
+
+    from dash import Patch
+
+    page = scene.page
+    view = page.service.active_view(scene.ctx, NOW)
+    rows = page.service.visible_rows(view)
+    first, sig = page.table_update(rows, True, {}, [], [], 0, None)
+    assert len(first.children[1].children) == len(rows)
+    assert page.table_update(rows, True, {}, [], [], 0, sig)[0] is page.no_update
+    i = 1
+    moved = [*rows[:i], (replace(rows[i][0], value_text="4.20 mg/L"), 0), *rows[i + 1:]]
+    patch, sig2 = page.table_update(moved, True, {}, [], [rows[i][0].key], 0, sig)
+    assert isinstance(patch, Patch)
+    ops = patch.to_plotly_json()["operations"]
+    assert [op["location"] for op in ops] == [["props", "children", 1, "props", "children", i]]
+    assert "4.20 mg/L" in _texts(ops[0]["params"]["value"])
+    assert ops[0]["params"]["value"].children[0].children.value == [rows[i][0].key]  # ticked
+    # another order, filter, sort or an action: the whole table
+    for args in ((moved[::-1], True, {}, [], [], 0), (moved, True, {"col": "alarm"}, [], [], 0),
+                 (moved, True, {}, [], [], 1)):
+        assert not isinstance(page.table_update(*args, sig2)[0], Patch)
 
 
 def test_pick_keeps_the_ticked_keys(scene):

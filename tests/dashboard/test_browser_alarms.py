@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import socket
 import sqlite3
+import sys
 import threading
 import time
 from datetime import UTC, datetime, timedelta
@@ -26,7 +27,8 @@ pytestmark = pytest.mark.browser
 
 @pytest.fixture(scope="module")
 def alarm_server(tmp_path_factory, demo_site):
-    """``(base URL, database path, keys)`` of a dashboard on the scenario database."""
+    """``(base URL, database path, keys, engine)`` of a dashboard on the scenario database,
+    refreshing the active list every 1.5 s (so a test sees a live update)."""
     from waitress.server import create_server
 
     from dashboard import context
@@ -38,6 +40,8 @@ def alarm_server(tmp_path_factory, demo_site):
     old = context._current
     app = create_app(demo_site, engine, secret_key="alarm-test")
     app.server.test_client().get("/login")  # this app takes the callbacks now
+    page_module = sys.modules["pages.alarms"]
+    refresh_ms, page_module.REFRESH_MS = page_module.REFRESH_MS, 1500
     with socket.socket() as s:
         s.bind(("127.0.0.1", 0))
         port = s.getsockname()[1]
@@ -50,7 +54,8 @@ def alarm_server(tmp_path_factory, demo_site):
             break
         except OSError:
             time.sleep(0.05)
-    yield f"http://127.0.0.1:{port}", path, keys
+    yield f"http://127.0.0.1:{port}", path, keys, engine
+    page_module.REFRESH_MS = refresh_ms
     server.close()
     if old is not None:
         context.install(old)
@@ -86,7 +91,7 @@ def _state(path, key: str) -> str:
 
 
 def test_operator_acknowledges_an_alarm(page, console, alarm_server, screens):
-    base, path, keys = alarm_server
+    base, path, keys, _ = alarm_server
     _open(page, base, "op1")
     row = page.locator(f'tr[data-key="{keys["unack"]}"]')
     assert row.locator(".al-state").inner_text() == "Unacknowledged"
@@ -112,7 +117,7 @@ def test_operator_acknowledges_an_alarm(page, console, alarm_server, screens):
 
 
 def test_viewer_cannot_acknowledge(page, console, alarm_server, screens):
-    base, path, keys = alarm_server
+    base, path, keys, _ = alarm_server
     _open(page, base, "view1")
     row = page.locator(f'tr[data-key="{keys["trip"]}"]')
     row.locator("input[type=checkbox]").check()
@@ -129,7 +134,7 @@ def test_viewer_cannot_acknowledge(page, console, alarm_server, screens):
 
 
 def test_history_and_performance_tabs(page, console, alarm_server, screens):
-    base, _path, _keys = alarm_server
+    base, *_ = alarm_server
     _open(page, base, "sup1")
     page.get_by_text("History", exact=True).click()
     page.wait_for_selector(".al-history-table tbody tr", timeout=10_000)
@@ -143,4 +148,35 @@ def test_history_and_performance_tabs(page, console, alarm_server, screens):
     page.wait_for_selector(".al-perf-table tbody tr", timeout=10_000)
     assert page.locator(".al-perf-table").inner_text().count("does not meet") >= 1
     page.screenshot(path=str(screens / "alarms-performance.png"), full_page=True)
+    assert console == []
+
+
+def test_a_change_by_someone_else_is_patched_in_and_keeps_the_selection(page, console,
+                                                                        alarm_server,
+                                                                        demo_site):
+    from db.alarm.service import AlarmService
+
+    base, _path, keys, engine = alarm_server
+    _open(page, base, "op1")
+    page.click("button.al-sort:has-text('Alarm and message')")  # an order states don't move
+    page.wait_for_selector("button.al-sort:has-text('▲')")
+    trip = page.locator(f'tr[data-key="{keys["trip"]}"]')
+    assert trip.locator(".al-state").inner_text() == "Unacknowledged"
+    n_rows = page.locator("tr.al-row").count()
+    page.locator(f'tr[data-key="{keys["unack"]}"] input[type=checkbox]').check()
+    page.wait_for_function("document.querySelector('#alarms-selected-text').innerText"
+                           ".startsWith('1 selected')")
+    patches: list[str] = []
+    page.on("response", lambda r: patches.append(r.url) if "_dash-update-component" in r.url
+            and "__dash_patch_update" in r.text() else None)
+    # a supervisor at another console acknowledges the pump trip
+    AlarmService(engine, demo_site).acknowledge(keys["trip"], "sup1", "seen on the camera")
+    page.wait_for_function(
+        f"document.querySelector('tr[data-key=\"{keys['trip']}\"] .al-state').innerText"
+        " === 'Acknowledged'", timeout=10_000)
+    assert "sup1" in trip.locator("td").nth(7).inner_text()
+    assert patches, "the refresh sent the whole table instead of a patch of the changed row"
+    assert page.locator("tr.al-row").count() == n_rows
+    assert page.locator(f'tr[data-key="{keys["unack"]}"] input[type=checkbox]').is_checked()
+    assert page.locator("#alarms-selected-text").inner_text().startswith("1 selected")
     assert console == []
