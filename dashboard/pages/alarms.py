@@ -159,7 +159,7 @@ def _active_tab(user: dict, can_act: bool) -> html.Div:
                                        value=site.fishways[0].id)),
         dcc.RadioItems(id=ALARMS_MODE, options=[{"label": f" {v}", "value": k}
                                                 for k, v in service.MODE_LABELS.items()],
-                       value="maintenance", className="al-mode-choice"),
+                       value=None, className="al-mode-choice"),
         _field("Reason", dcc.Input(id=ALARMS_MODE_REASON, type="text", maxLength=300,
                                    className="al-input")),
         html.Div(className="actions", children=[

@@ -460,6 +460,8 @@ def set_mode(ctx: AppContext, who: str, fishway_id: str, mode: str, why: str = "
              now: datetime | None = None) -> ActionResult:
     """Put a fishway into maintenance or out of service (suppression by design of the rules
     that name the mode), or back into operation; logged under ``who``."""
+    if not mode:
+        return ActionResult(False, "Not done: choose the mode first.")
     if mode not in MODE_LABELS:
         return ActionResult(False, f"Not done: unknown mode {mode!r}.")
     try:

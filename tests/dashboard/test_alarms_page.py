@@ -419,6 +419,41 @@ def test_acknowledging_records_the_signed_in_operator(scene):
     assert version is page.no_update
 
 
+def test_acknowledging_many_is_all_or_none(scene):
+    page, k = scene.page, scene.keys
+    before = _sql(scene, "SELECT count(*) FROM alarm_events")
+    text, cls, version, left = _as(scene, OP1, page.handle_action, "acknowledge",
+                                   [k["rtn"], k["shelved"]], "", None, 0)  # shelved: refused
+    assert cls == "feedback error" and "cannot acknowledge" in text
+    assert version is page.no_update and left is page.no_update
+    assert _sql(scene, "SELECT count(*) FROM alarm_events") == before
+    assert _state(scene, k["rtn"]) == "rtn_unacknowledged"
+
+
+def test_return_to_service_and_out_of_service_again(scene):
+    page, key = scene.page, scene.keys["oos"]
+    text, cls, _, _ = _as(scene, OP1, page.handle_action, "return_to_service", [key], "",
+                          None, 0)
+    # ISA-18.2: leaving out of service, the alarm follows its condition (oxygen still low)
+    assert cls == "feedback ok" and _state(scene, key) == "unacknowledged"
+    text, cls, _, _ = _as(scene, OP1, page.handle_action, "remove_from_service", [key], "",
+                          None, 1)
+    assert cls == "feedback error" and "needs a reason" in text
+    text, cls, _, _ = _as(scene, OP1, page.handle_action, "remove_from_service", [key],
+                          "probe swapped", None, 1)
+    assert cls == "feedback ok" and _state(scene, key) == "out_of_service"
+    who, why = _sql(scene, "SELECT e.who, e.why FROM alarm_events e JOIN alarms a ON "
+                           "a.id = e.alarm_id WHERE a.key = ? ORDER BY e.id DESC", key)[0]
+    assert (who, why) == ("op1", "probe swapped")
+
+
+def test_select_all_ticks_every_shown_row(scene):
+    page = scene.page
+    ids = [{"type": page.ALARMS_PICK, "key": k} for k in ("a@x", "b@x")]
+    assert _clicked(page.ALARMS_SELECT_ALL, page.select_all, 1, None, ids) == [["a@x"], ["b@x"]]
+    assert _clicked(page.ALARMS_SELECT_NONE, page.select_all, 1, 1, ids) == [[], []]
+
+
 def test_each_alarm_of_a_shelving_is_reported_and_the_failed_stay_selected(scene):
     page, k = scene.page, scene.keys
     text, cls, version, left = _as(scene, OP1, page.handle_action, "shelve",
@@ -433,6 +468,8 @@ def test_each_alarm_of_a_shelving_is_reported_and_the_failed_stay_selected(scene
 
 def test_maintenance_mode_suppresses_by_design_and_is_logged(scene):
     page = scene.page
+    text, cls, version = _as(scene, OP1, page.set_mode, 1, "west", None, "", 0)
+    assert "choose the mode" in text and version is page.no_update  # nothing picked yet
     text, cls, _ = _as(scene, OP1, page.set_mode, 1, "west", "maintenance", "dewatered", 0)
     assert cls == "feedback ok" and "maintenance" in text
     assert _state(scene, scene.keys["rtn"]) == "suppressed_by_design"
@@ -446,6 +483,9 @@ def test_maintenance_mode_suppresses_by_design_and_is_logged(scene):
     clear = [k for k, rec in quiet if not json.loads(rec)["active"]]
     assert view.quiet_suppressed["west"] == len(clear) > 10
     assert not set(clear) & set(view.by_key) and view.modes["west"] == "maintenance"
+    rack = view.by_key[scene.keys["shelved"]]  # its condition is present: listed, neutral
+    assert rack.state_text == "Suppressed by design: fishway in maintenance"
+    assert rack.look == "neutral"
     text, cls, _ = _as(scene, OP1, page.set_mode, 1, "west", "operating", "watered up", 0)
     assert cls == "feedback ok"
     assert _state(scene, scene.keys["rtn"]) != "suppressed_by_design"
