@@ -173,7 +173,8 @@ _PARAM_WORDS = {"_m": "level", "_pct": "opening", "_pumps": "pumps"}
 
 
 def _param_kind(name: str) -> str:
-    return next(kind for suffix, kind in _SUFFIX_KIND if name.endswith(suffix))
+    """Display kind of a rule parameter from its unit suffix (a count when it has none)."""
+    return next((kind for suffix, kind in _SUFFIX_KIND if name.endswith(suffix)), "count")
 
 
 def _param_label(name: str) -> str:
@@ -429,8 +430,9 @@ def changes_rows(site: Site, engine: Any, limit: int = 50) -> list[dict[str, str
             continue
         try:
             param = parameter(site.fishway(fid), r["key"])
-        except ValueError:
-            param = Parameter(r["key"], r["key"], "", "count")
+        except ValueError:  # a key this page does not offer (the alarms page's, say)
+            name = str(r["key"]).rsplit(".", 1)[-1]
+            param = Parameter(r["key"], str(r["key"]), "", _param_kind(name))
         if r["key"] == "mode":
             old, new = str(r["old_text"] or "—"), str(r["new_text"] or "—")
         else:

@@ -283,3 +283,17 @@ def test_layout_by_role(site_page, app_ctx):
     assert site_page.SITE_APPLY not in viewer and "changed by supervisors" in viewer
     assert site_page.SITE_APPLY in supervisor and site_page.SITE_USER_CREATE in supervisor
     assert "Advisory only" in supervisor  # the caution beside the settings
+
+
+def test_history_formats_keys_this_page_does_not_offer_by_their_unit(app_ctx):
+    """The alarms page records its own edits (deadbands, say) in the same table."""
+    from db.dashboard_queries import fishway_db_ids, record_setting_change
+
+    fw = fishway_db_ids(app_ctx.engine, app_ctx.site.site.name)["east"]
+    record_setting_change(app_ctx.engine, fw, "alarms.head_drop.deadband_m", NOW, action="set",
+                          set_by="sup1", old_value=0.05 * FT, new_value=0.1 * FT)
+    (row,) = service.changes_rows(app_ctx.site, app_ctx.engine)
+    assert (row["setting"], row["from"], row["to"]) == ("alarms.head_drop.deadband_m",
+                                                        "0.05 ft", "0.10 ft")
+    eff = service.effective_site(app_ctx.site, app_ctx.engine)
+    assert eff.fishways["east"].alarms.head_drop.deadband_m == pytest.approx(0.1 * FT)
