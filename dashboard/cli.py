@@ -24,18 +24,17 @@ import importlib.util
 import os
 import sys
 import traceback
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from typing import Any
 
 from ops_logic.cli import InputError
-from ops_logic.ladder import Ladder, SettingError
-from ops_logic.report_format import format_profile, format_recommendation
+from ops_logic.ladder import SettingError
 from ops_logic.site import SiteConfigError, load_site
 
 __all__ = ["COMMAND_MODULES", "build_parser", "main", "register"]
 
-COMMAND_MODULES: tuple[str, ...] = ("ops_logic.cli", "db.cli", "db.alarm_cli",
-                                     "simulator.cli")
+COMMAND_MODULES: tuple[str, ...] = ("ops_logic.cli", "db.cli", "db.ingest.cli",
+                                     "db.alarm_cli", "simulator.cli")
 """Modules whose ``register(subparsers, common)`` adds sub-commands, in ``--help`` order."""
 
 
@@ -119,36 +118,118 @@ def main(argv: Sequence[str] | None = None) -> int:
 
 
 # -- the dashboard's own commands ------------------------------------------------------------
+DEMO_MAX_DAYS = 7.0
+"""Most seeded days: the demo scenario (simulator.scenario.DEMO_DAYS) lasts 8 days."""
+DEMO_FILE = "fishway-demo.sqlite"
+
+
+def _start_dashboard(database_url: str) -> Callable[[], None] | None:
+    """Start the dashboard on ``database_url`` beside the live demo; return its stop function.
+
+    The place for the dashboard of a later issue: until it exists the demo runs without one
+    (None). It must start in the background and read the same database as the ingest.
+    """
+    return None
+
+
+def _progress(total_days: float) -> Callable[[int, int | None, float], None]:
+    shown = [-1]
+
+    def progress(done: int, total: int | None, elapsed: float) -> None:
+        pct = int(100 * done / total) if total else 0
+        if pct // 10 > shown[0] or done == total:
+            shown[0] = pct // 10
+            print(f"fishway demo: seeding {total_days:g} day(s): {min(pct, 100):3d}% "
+                  f"({done:,} readings, {elapsed:.0f} s)", file=sys.stderr, flush=True)
+
+    return progress
+
+
 def _demo(args: argparse.Namespace) -> int:
-    """Until the dashboard exists: the core on the demo site at representative levels."""
+    """Seed a demo database with simulated history, then run the plant and the ingest live."""
+    import itertools
+    from datetime import UTC, datetime, timedelta
+
+    from db.engine import default_data_dir
+    from db.feeds.registry import build_feeds
+    from db.ingest.cli import engine_for, run_until_stopped, simulated_factory
+    from db.ingest.seed import seed_history
+    from db.ingest.service import IngestService
+    from db.migrate import upgrade
+    from db.site_sync import sync_site
+    from simulator.history import generate_history
+    from simulator.plant import Plant
+    from simulator.scenario import demo_scenario
+
+    if not 0.0 < args.days <= DEMO_MAX_DAYS:
+        raise InputError(f"--days: {args.days:g} is outside (0, {DEMO_MAX_DAYS:g}]")
     site = load_site(None)
-    units = site.site.units
-    print(f"fishway-ops demo: {site.site.name} (an invented site); the live dashboard demo "
-          "replaces this text demo in a later release.\n")
-    for f in site.fishways:
-        ladder = Ladder(f)
-        fb = 0.5 * sum(f.forebay_range)
-        tw = 0.5 * sum(f.tailwater_range)
-        current = ladder.default_settings()
-        profile = ladder.solve(fb, tw, current)
-        print("=" * 100)
-        print(f"{f.name}: current profile (default settings) at mid forebay and tailwater")
-        print(format_profile(profile, ladder, units))
-        print()
-        rec = ladder.recommend(fb, tw, current)
-        print(format_recommendation(rec, ladder, units))
-        print()
-    return 0
+    if args.database:
+        url = args.database
+    else:  # a fresh file each time
+        path = default_data_dir() / "demo" / DEMO_FILE
+        path.parent.mkdir(parents=True, exist_ok=True)
+        for old in (path, path.with_name(path.name + "-wal"), path.with_name(path.name + "-shm")):
+            old.unlink(missing_ok=True)
+        url = f"sqlite:///{path}"
+    engine = engine_for(url)
+    try:
+        upgrade(engine)
+        tag_ids = sync_site(engine, site)
+        now = datetime.now(UTC).replace(microsecond=0)
+        start = now - timedelta(days=args.days)
+        plant = Plant(site, start=start, seed=args.seed, scenario=demo_scenario(start, site))
+        feeds = build_feeds(site, simulated_factory=simulated_factory(start, plant=plant))
+        service = IngestService(site, engine, feeds, tag_ids=tag_ids)
+        print(f"fishway demo: {site.site.name} (an invented site), database "
+              f"{engine.url.render_as_string()}", file=sys.stderr, flush=True)
+        by_period: dict[float, list] = {}
+        for tag in plant.tags:
+            by_period.setdefault(tag.poll_seconds, []).append(tag)
+        total = sum(len(tags) * (int(args.days * 86400 / p) + 1) for p, tags in by_period.items())
+        streams = [generate_history(plant, tags, start, now, p, align=True)
+                   for p, tags in by_period.items()]
+        batches = ([r for b in step if b for r in b]
+                   for step in itertools.zip_longest(*streams))
+        report = seed_history(service, batches, total=total, progress=_progress(args.days))
+        print(f"fishway demo: seeded {report.stored:,} readings of {len(plant.tags)} tags "
+              f"({args.days:g} day(s), {report.reflagged:,} re-flagged by QC, "
+              f"{report.recommendations} recommendations) in {report.seconds:.1f} s")
+        if args.seed_only:
+            service.close()
+            return 0
+        stop_dashboard = _start_dashboard(url)
+        print(f"fishway demo: the plant and the ingest run live now (Ctrl-C stops); "
+              f"database {engine.url.render_as_string()}", flush=True)
+        try:
+            run_until_stopped(service, status=lambda line: print(line, flush=True))
+        finally:
+            if stop_dashboard is not None:
+                stop_dashboard()
+        print("fishway demo: stopped", file=sys.stderr)
+        return 0
+    finally:
+        engine.dispose()
 
 
 def register(subparsers: Any, common: argparse.ArgumentParser) -> None:
     """The dashboard package's sub-commands."""
-    p = subparsers.add_parser("demo", parents=[common], help="run the core on the demo site "
-                              "and print each fishway's profile and recommendation",
-                              description="Solve each fishway of the shipped demo site at the "
-                              "middle of its forebay and tailwater ranges with its default "
-                              "settings, then print the advisory recommendation from there "
-                              "(rate limits apply).")
+    p = subparsers.add_parser(
+        "demo", parents=[common], help="seed a demo database with simulated days, then run "
+        "the simulated plant and the ingest live",
+        description="Seed an embedded database (a fresh var/demo/fishway-demo.sqlite, or "
+        "--database) with DAYS of simulated 10-second history of the demo site (quality-"
+        "checked, with hourly recommendations), then keep the simulated plant (its demo "
+        "scenario and an operator who follows the recommendations) and the ingest running in "
+        "real time until Ctrl-C, with a status line every minute. Every recommendation is "
+        "advisory.")
+    p.add_argument("--database", metavar="URL", help="SQLAlchemy URL of the database to seed "
+                   "(default: a fresh var/demo/fishway-demo.sqlite under $FISHWAY_DATA_DIR)")
+    p.add_argument("--days", type=float, default=3.0, metavar="N",
+                   help=f"days of history to seed (default 3, at most {DEMO_MAX_DAYS:g})")
+    p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed of the "
+                   "simulated plant (default 0)")
+    p.add_argument("--seed-only", action="store_true", help="seed the database, then exit")
     p.set_defaults(handler=_demo)
     from dashboard import commands
 

@@ -54,7 +54,8 @@ _log = logging.getLogger("db.ingest")
 DAILY_TIMES = {"backup": dtime(1, 30), "prune": dtime(2, 30), "partitions": dtime(2, 45)}
 """Local time of day (the site's zone) of the daily jobs."""
 RECOMMEND_LAG_S = 2.0
-"""Real seconds the recommender runs after the polls of the same instant (APScheduler)."""
+"""Seconds of service time the recommender runs after the polls of the same instant
+(APScheduler; divided by the speed in real time)."""
 
 
 class SimulatedClock:
@@ -200,7 +201,7 @@ def build_scheduler(service: Any, *, speed: float = 1.0,
         executor = "upkeep" if job.upkeep else "default"
         if job.period_s is not None:
             # the recommender a moment after the polls due at the same instant
-            lag = timedelta(seconds=RECOMMEND_LAG_S if job.name == "recommend" else 0.0)
+            lag = timedelta(seconds=RECOMMEND_LAG_S / speed if job.name == "recommend" else 0.0)
             trigger = IntervalTrigger(seconds=job.period_s / speed, start_date=real_time(
                 next_due(sim_now, job.period_s)) + lag, timezone=UTC)
             grace = max(job.period_s / speed, 1.0)

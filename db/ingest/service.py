@@ -7,19 +7,19 @@ wires the same methods to APScheduler for real time):
 
 - ``poll_once(now, groups=None) -> PollReport``: for each poll group (tags of one feed with one
   poll period; all groups when ``groups`` is None) one bulk ``feed.read``; after an outage, or
-  at the first poll after a start with readings stored, a feed with history is also asked
-  for ``feed.history(tags, since, until)`` (``since``: the time up to which the group's
-  readings are complete, at most ``max_backfill_s`` back; ``until``: the newest time stamp of
-  the live read, or ``now`` if later; the read comes first, so it is what tells the feed is
-  back, and nothing the source recorded while it reconnected is missed). Backfill and live readings are QC'd
+  at the first poll after a start with readings stored, a feed with history is also asked for
+  ``feed.history(tags, since, until)`` (``since``: the time up to which the group's readings are
+  complete, at most ``max_backfill_s`` back; ``until``: the newest time stamp of the live read,
+  or ``now`` if later; the read comes first, so it is what tells the feed is back, and nothing
+  the source recorded while it reconnected is missed). Backfill and live readings are QC'd
   (:mod:`db.ingest.live_qc`) and stored as one batch (:func:`db.readings.store_batch`: raw
-  readings and rollups, atomic, idempotent, so overlaps are harmless), re-flags are applied,
-  a CSV drop folder is committed, and the feed's health is written
-  (:func:`db.feed_health.update_feed_health`): last success, readings per minute (live
-  readings of the cycle per minute since the group's previous poll, summed over the feed's
-  groups), lag (now − newest source time stamp, ≥ 0) — or, on a :class:`FeedError` (or any
-  exception a feed raises), the error with the number of consecutive errors; the feed is
-  polled again at its next period (its own back-off decides whether it really connects).
+  readings and rollups, atomic, idempotent, so overlaps are harmless), re-flags are applied, a
+  CSV drop folder is committed, and the feed's health is written
+  (:func:`db.feed_health.update_feed_health`): last success, readings per minute (live readings
+  of the cycle per minute since the group's previous poll, summed over the feed's groups), lag
+  (now − newest source time stamp, ≥ 0) — or, on a :class:`FeedError` (or any exception a feed
+  raises), the error with the number of consecutive errors; the feed is polled again at its next
+  period (its own back-off decides whether it really connects).
 - ``recommend_once(now)``: each fishway's recommender cycle (:mod:`db.ingest.recommending`).
 - ``prune_once(now)``: :func:`db.retention.prune` with the site's ``keep_raw_days``.
 - ``partitions_once(now)``: :func:`db.partitions.ensure_partitions` two months ahead.
@@ -56,6 +56,7 @@ from pathlib import Path
 from typing import Any, NamedTuple
 
 import numpy as np
+import pandas as pd
 from sqlalchemy.engine import Engine
 
 from db.catalog import tags_frame
@@ -160,6 +161,36 @@ class CycleContext:
 
 
 Evaluator = Callable[[datetime, CycleContext], Any]
+
+
+def _columns(readings: Sequence[FeedReading], history: Sequence[FeedReading]
+             ) -> tuple[dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]],
+                        dict[str, np.ndarray]]:
+    """Readings as per-tag arrays (times [epoch ms], values, source_ok) and timed masks."""
+    both = [*readings, *history]
+    if not both:
+        return {}, {}
+    tags = [r.tag for r in both]
+    stamps = [r.ts for r in both]
+    # one poll's readings share a time stamp object: convert each object once (``first``
+    # holds the objects, so their ids stay unique while they are used)
+    ids = list(map(id, stamps))
+    first = dict(zip(ids, stamps, strict=True))
+    ms_of = {k: to_epoch_ms(ts) for k, ts in first.items()}
+    ms = np.fromiter(map(ms_of.__getitem__, ids), np.int64, len(ids))
+    values = np.asarray([r.value for r in both], dtype=np.float64)
+    ok = np.asarray([r.source_ok for r in both], dtype=bool)
+    timed = np.zeros(len(both), dtype=bool)
+    timed[:len(readings)] = True
+    codes, names = pd.factorize(np.asarray(tags, dtype=object))
+    order = np.argsort(codes, kind="stable")
+    bounds = np.concatenate(([0], np.cumsum(np.bincount(codes, minlength=len(names)))))
+    batch, masks = {}, {}
+    for k, name in enumerate(names.tolist()):
+        part = order[bounds[k]:bounds[k + 1]]
+        batch[name] = (ms[part], values[part], ok[part])
+        masks[name] = timed[part]
+    return batch, masks
 
 
 def _error_text(exc: BaseException) -> str:
@@ -278,21 +309,7 @@ class IngestService:
         """QC ``readings`` (timing-tested at arrival time ``now`` when given) and ``history``
         (never timing-tested), store them as one batch, apply re-flags, update the windows."""
         with self._lock:
-            per: dict[str, tuple[list, list, list, list]] = {}
-            for source, timed in ((readings, True), (history, False)):
-                for r in source:
-                    lists = per.get(r.tag)
-                    if lists is None:
-                        lists = per[r.tag] = ([], [], [], [])
-                    lists[0].append(r.ts)
-                    lists[1].append(r.value)
-                    lists[2].append(r.source_ok)
-                    lists[3].append(timed)
-            batch, timed_masks = {}, {}
-            for name, (stamps, values, ok, timed_list) in per.items():
-                ms = np.fromiter((to_epoch_ms(ts) for ts in stamps), np.int64, len(stamps))
-                batch[name] = (ms, values, ok)
-                timed_masks[name] = np.asarray(timed_list, dtype=bool)
+            batch, timed_masks = _columns(readings, history)
             now_s = to_utc(now).timestamp() if now is not None else None
             ev = self.qc.evaluate(batch, now_s=now_s, timed=timed_masks)
             for name in ev.unknown:

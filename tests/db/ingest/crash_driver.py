@@ -19,16 +19,16 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
 
-from conftest import west_site  # noqa: E402
+from conftest import west_site
 
-from db.engine import make_engine  # noqa: E402
-from db.feeds.base import Feed, FeedReading  # noqa: E402
-from db.ingest.qc_config import tag_thresholds  # noqa: E402
-from db.ingest.schedule import SimulatedClock  # noqa: E402
-from db.ingest.service import IngestService  # noqa: E402
-from db.ingest.store import newest_ms  # noqa: E402
-from db.migrate import upgrade  # noqa: E402
-from db.site_sync import sync_site  # noqa: E402
+from db.engine import make_engine
+from db.feeds.base import Feed, FeedReading
+from db.ingest.qc_config import tag_thresholds
+from db.ingest.schedule import SimulatedClock
+from db.ingest.service import IngestService
+from db.ingest.store import newest_ms
+from db.migrate import upgrade
+from db.site_sync import sync_site
 
 __all__ = ["GridFeed", "run"]
 

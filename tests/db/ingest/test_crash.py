@@ -18,12 +18,12 @@ import time
 from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-import crash_driver  # noqa: E402
+import crash_driver
 
 DRIVER = Path(__file__).with_name("crash_driver.py")
 START_S = 1_780_272_000  # 2026-06-01T00:00:00Z
 BLOCK_S = 1000
-UNTIL_S = START_S + 20 * BLOCK_S
+UNTIL_S = START_S + 12 * BLOCK_S
 N_TAGS = 15
 
 

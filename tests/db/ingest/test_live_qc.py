@@ -13,6 +13,7 @@ References:
 """
 from __future__ import annotations
 
+import itertools
 import math
 from dataclasses import replace
 
@@ -40,7 +41,7 @@ def feed(qc: LiveQc, name: str, ms: np.ndarray, x: np.ndarray, splits: list[int]
     stored: dict[int, int] = {}
     tag_id = 1
     bounds = [0, *sorted(set(splits)), ms.size]
-    for lo, hi in zip(bounds[:-1], bounds[1:], strict=True):
+    for lo, hi in itertools.pairwise(bounds):
         if hi <= lo:
             continue
         ev = qc.evaluate({name: (ms[lo:hi], x[lo:hi], None if ok is None else ok[lo:hi])})

@@ -1,11 +1,12 @@
 """A simulated day through IngestService with a simulated clock (SQLite and PostgreSQL).
 
-The plant is the simulator's (west ladder of the demo site, quiet scenario with its operator,
-a profile solve every 5 min); its day of readings on the 60 s grid is computed once
-(``simulator.history.generate_history``) and handed out poll by poll; the recommender runs every 600 s. Checks are counts that follow from the
-schedule and the rollup definition (db/rollups.py: one row per tag and bucket, n = readings in
-the bucket), the job calendar, and that a spike injected on the forebay gauge is stored
-FAILed (QARTOD spike test, ops_logic.qc) and never reaches a stored recommendation.
+The plant is the simulator's (west ladder of the demo site, quiet scenario with its operator, a
+profile solve every 5 min); its day of readings on the 60 s grid is computed once
+(``simulator.history.generate_history``) and handed out poll by poll; the recommender runs
+every 600 s. Checks are counts that follow from the schedule and the rollup definition
+(db/rollups.py: one row per tag and bucket, n = readings in the bucket), the job calendar, and
+that a spike injected on the forebay gauge is stored FAILed (QARTOD spike test, ops_logic.qc)
+and never reaches a stored recommendation.
 """
 from __future__ import annotations
 
@@ -86,7 +87,7 @@ def run_day(db_engine, tmp_path):
 
 
 def check_a_day_of_jobs_on_schedule(day):
-    site, service, _, runs, seen, _ = day
+    _site, service, _, runs, seen, _ = day
     # 86400 s / 60 s + the poll at the start; recommendations likewise every 600 s; the daily
     # jobs once (their local time of day falls once in any 24 h)
     assert runs["poll:plant:60s"] == 1441
@@ -97,7 +98,7 @@ def check_a_day_of_jobs_on_schedule(day):
 
 
 def check_rollups_hold_every_reading(day):
-    site, service, tag_ids, *_ = day
+    _site, service, tag_ids, *_ = day
     eng = service.engine
     for name in ("west.forebay_level", "west.P39.level_b", "west.G2.opening"):
         hours = rollups_frame(eng, tag_ids[name], 3600, START, START + timedelta(days=1))
@@ -110,7 +111,7 @@ def check_rollups_hold_every_reading(day):
 
 
 def check_feed_health_after_a_day(day):
-    site, service, *_ = day
+    _site, service, *_ = day
     health = feed_health_frame(service.engine)
     end = START + timedelta(days=1)
     plant = health.loc["plant"]
@@ -122,7 +123,7 @@ def check_feed_health_after_a_day(day):
 
 
 def check_recommendations_stored_with_their_inputs(day):
-    site, service, tag_ids, *_ = day
+    _site, service, tag_ids, *_ = day
     recs = recommendations_frame(service.engine, service.fishway_db_ids["west"], START,
                                  START + timedelta(days=1, seconds=1))
     # the first cycle (at the start) has no settled reading yet: 144 of 145 are stored
@@ -141,7 +142,7 @@ def check_recommendations_stored_with_their_inputs(day):
 
 
 def check_spike_is_failed_and_never_used(day):
-    site, service, tag_ids, _, _, plant = day
+    _site, service, tag_ids, _, _, plant = day
     forebay = readings_frame(service.engine, tag_ids["west.forebay_level"], START,
                              START + timedelta(days=1))
     spike = forebay.loc[SPIKE_AT]
