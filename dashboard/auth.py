@@ -36,6 +36,7 @@ __all__ = [
     "ROLES",
     "PermissionDenied",
     "create_user",
+    "anonymous_callback_allowed",
     "current_user",
     "guard",
     "has_role",
@@ -51,8 +52,34 @@ FAILURE_WINDOW_S = 300.0
 _SCRYPT = {"n": 2**14, "r": 8, "p": 1, "dklen": 32}
 OPEN_PATHS = ("/login", "/logout", "/wall", "/assets/", "/_dash-", "/_reload-hash",
               "/_favicon.ico", "/favicon.ico")
-"""Paths served without a session; Dash's own routes are open because every callback checks
-the role itself (the wall's callbacks need none)."""
+"""Paths served without a session. Dash's own routes must stay open for the wall display, so
+callback requests are checked on their own: see :func:`anonymous_callback_allowed`."""
+
+ANONYMOUS_OUTPUT_PREFIXES = ("wall", "_pages_")
+"""A callback request without a session may only update components whose id starts so: the
+wall display's and Dash's page routing (every page layout but the wall's starts with
+:func:`guard`). Anything else is refused with 403 before any callback runs."""
+
+
+def _output_ids(payload: object) -> list[str]:
+    outputs = payload.get("outputs") if isinstance(payload, dict) else None
+    items = outputs if isinstance(outputs, list) else [outputs]
+    ids: list[str] = []
+    for item in items:
+        if isinstance(item, list):  # a multi-output callback with ALL/MATCH wildcards
+            ids.extend(_output_ids({"outputs": item}))
+            continue
+        cid = item.get("id") if isinstance(item, dict) else None
+        if isinstance(cid, dict):  # pattern-matching id: judge by its "type"
+            cid = cid.get("type")
+        ids.append(cid if isinstance(cid, str) else "")
+    return ids
+
+
+def anonymous_callback_allowed(payload: object) -> bool:
+    """Whether a callback request (its JSON body) may run without a session."""
+    ids = _output_ids(payload)
+    return bool(ids) and all(i.startswith(ANONYMOUS_OUTPUT_PREFIXES) for i in ids)
 
 
 class PermissionDenied(PermissionError):  # noqa: N818 - reads better at the call sites
@@ -176,8 +203,13 @@ def install(server: flask.Flask, engine: Engine, *, wall_only: bool = False) -> 
         pass
 
     @server.before_request
-    def _gate() -> flask.Response | None:
+    def _gate() -> flask.Response | tuple[str, int] | None:
         path = flask.request.path
+        if path == "/_dash-update-component" and current_user() is None:
+            payload = flask.request.get_json(silent=True)
+            if not anonymous_callback_allowed(payload):
+                return "sign in first", 403
+            return None
         if wall_only:
             if path == "/" or path.startswith(OPEN_PATHS):
                 return None if path != "/" else flask.redirect("/wall")

@@ -74,3 +74,29 @@ def test_require_checks_roles_on_the_server(seeded_engine, demo_site):
         assert auth.require("viewer")["name"] == "view1"
         with pytest.raises(auth.PermissionDenied, match="operator"):
             auth.require("operator")
+
+
+@pytest.mark.parametrize(("payload", "allowed"), [
+    ({"outputs": {"id": "wall-clock", "property": "children"}}, True),
+    ({"outputs": [[{"id": {"type": "wall-item", "key": "east"}, "property": "children"}]]},
+     True),
+    ({"outputs": {"id": "_pages_content", "property": "children"}}, True),
+    ({"outputs": {"id": "log-entries", "property": "children"}}, False),
+    ({"outputs": [{"id": "wall-clock", "property": "children"},
+                  {"id": "alarms-table", "property": "children"}]}, False),
+    ({}, False),
+    (None, False),
+])
+def test_anonymous_callback_requests_reach_only_the_wall(payload, allowed):
+    assert auth.anonymous_callback_allowed(payload) is allowed
+
+
+def test_anonymous_callback_request_for_a_page_is_refused(seeded_engine, demo_site):
+    from dashboard.app import create_app
+
+    app = create_app(demo_site, seeded_engine, secret_key="k")
+    client = app.server.test_client()
+    body = {"output": "log-entries.children",
+            "outputs": {"id": "log-entries", "property": "children"},
+            "inputs": [], "changedPropIds": []}
+    assert client.post("/_dash-update-component", json=body).status_code == 403
