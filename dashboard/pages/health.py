@@ -2,7 +2,8 @@
 QARTOD flags of each tag over the last hour and day (:mod:`dashboard.services.health`).
 
 Refreshes every :data:`REFRESH_MS`; "only problems" keeps the tags that are stale, missing,
-failing or suspect, or had suspect, failed or missing readings in the last hour.
+failing or suspect, had suspect, failed or missing readings in the last hour, or received
+fewer than 90 % of the readings their poll period promises in the last hour.
 """
 
 from __future__ import annotations
@@ -83,15 +84,17 @@ def _tags_table(rows: list[service.TagRow]) -> Any:
     head = html.Tr([html.Th(h) for h in ("Tag", "Quantity", "Poll", "Last reading", "Age",
                                          "Value", "Flag")] + window + window)
 
-    def counts(c: tuple[int, ...], received: str) -> list:
+    def counts(c: tuple[int, ...], received: str, gaps: bool = False) -> list:
         return [html.Td(str(n), className="num" + (" flag-bad" if n and i >= 2 else ""))
-                for i, n in enumerate(c)] + [html.Td(received, className="num")]
+                for i, n in enumerate(c)] + [html.Td(received, className="num" + (
+                    " flag-bad" if gaps else ""))]
 
     body = [html.Tr(className=f"tag-{r.status}", children=[
         html.Td(r.name), html.Td(r.quantity), html.Td(r.poll, className="num"),
         html.Td(r.last), html.Td(r.age, className="num"), html.Td(r.value, className="num"),
         html.Td(r.flag, className="health-status"),
-        *counts(r.hour, r.hour_received), *counts(r.day, r.day_received)]) for r in rows]
+        *counts(r.hour, r.hour_received, r.gaps), *counts(r.day, r.day_received)])
+        for r in rows]
     return html.Table(className="grid-table health-table", children=[
         html.Thead([top, head]), html.Tbody(body)])
 

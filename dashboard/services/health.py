@@ -8,7 +8,8 @@ alarm settings), ``ok`` otherwise; a feed that never reported is absent from
 ``stale`` when older than :data:`~dashboard.services.overview.STALE_POLLS` poll periods. The
 flag counts are the readings per QARTOD flag (IOOS flags manual v1.2, 2020: 1 pass, 2 not
 evaluated, 3 suspect, 4 fail, 9 missing) in ``[now − 1 h, now)`` and ``[now − 1 d, now)``;
-*received* is the share of the expected readings (window / poll period) that arrived.
+*received* is the share of the expected readings (window / poll period) that arrived; less
+than :data:`MIN_RECEIVED` of them in the last hour counts as a problem (gaps).
 
 >>> tag_kind("m", "water_level"), tag_kind("m", "head_differential"), tag_kind("m3/s", "flow")
 ('elevation', 'length', 'flow')
@@ -32,10 +33,13 @@ from db.feed_health import feed_health_frame
 from db.readings import latest_values
 from ops_logic.site import Site
 
-__all__ = ["FLAGS", "FeedRow", "TagRow", "feed_rows", "tag_kind", "tag_rows"]
+__all__ = ["FLAGS", "MIN_RECEIVED", "FeedRow", "TagRow", "feed_rows", "tag_kind", "tag_rows"]
 
 FLAGS = tuple(QARTOD_FLAG_NAMES)
 """QARTOD flags in column order: 1, 2, 3, 4, 9."""
+MIN_RECEIVED = 0.9
+"""Share of the expected readings of the last hour below which a tag has gaps (an operating
+choice of ours, not a published value)."""
 
 _UNIT_KINDS = {"m3/s": "flow", "degC": "temperature", "mg/L": "do", "%": "pct",
                "count": "count", "flag": "count"}
@@ -75,6 +79,7 @@ class TagRow:
     hour_received: str
     day: tuple[int, ...]
     day_received: str
+    gaps: bool
     problem: bool
 
 
@@ -109,10 +114,14 @@ def feed_rows(site: Site, engine: Any, now: datetime) -> list[FeedRow]:
     return out
 
 
-def _received(counts: tuple[int, ...], window_s: float, poll_s: float) -> str:
+def _share(counts: tuple[int, ...], window_s: float, poll_s: float) -> float | None:
     expected = window_s / poll_s
     got = sum(counts[:4])  # readings with a value (flag 9 is a missing one)
-    return f"{min(100.0, 100.0 * got / expected):.0f} %" if expected >= 1 else "—"
+    return min(1.0, got / expected) if expected >= 1 else None
+
+
+def _received(share: float | None) -> str:
+    return "—" if share is None else f"{100.0 * share:.0f} %"
 
 
 def tag_rows(site: Site, engine: Any, now: datetime) -> list[TagRow]:
@@ -143,8 +152,11 @@ def tag_rows(site: Site, engine: Any, now: datetime) -> list[TagRow]:
                 f"{flag} {QARTOD_FLAG_NAMES[flag]}"
         else:
             status, value_text, last, age, flag_text = "none", "—", "never", "—", "—"
-        problem = status != "ok" or any(h[i] for i in (2, 3, 4))
+        hour_share = _share(h, 3600.0, poll)
+        gaps = hour_share is not None and hour_share < MIN_RECEIVED
+        problem = status != "ok" or gaps or any(h[i] for i in (2, 3, 4))
         out.append(TagRow(int(tag_id), str(t["name"]), str(t["quantity"]).replace("_", " "),
                           f"{poll:g} s", last, age, value_text, flag_text, status, h,
-                          _received(h, 3600.0, poll), d, _received(d, 86400.0, poll), problem))
+                          _received(hour_share), d, _received(_share(d, 86400.0, poll)), gaps,
+                          problem))
     return out

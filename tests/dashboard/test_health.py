@@ -96,8 +96,17 @@ def test_feed_status(app_ctx, success_age_s, error_age_s, status):
         assert row.rate == "210 /min" and row.lag == "1.5 s"
 
 
+def _poll(engine, seconds: float, name: str | None = None) -> None:
+    """Give tags another poll period (the seeded readings are 60 s apart, the site's 10 s)."""
+    with engine.begin() as conn:
+        conn.exec_driver_sql("UPDATE tags SET poll_period_s = ?" + (" WHERE name = ?" if name
+                                                                    else ""),
+                             (seconds, name) if name else (seconds,))
+
+
 def test_tag_rows_count_flags_like_pandas_on_the_raw_readings(app_ctx):
     e = app_ctx.engine
+    _poll(e, 60.0, "east.forebay_level")
     t = SEED_END.timestamp()
     level = tag_id(e, "east.P20.level")
     store_batch(e, [(level, t + 1, 70.0, 3), (level, t + 2, 71.0, 4),
@@ -116,7 +125,17 @@ def test_tag_rows_count_flags_like_pandas_on_the_raw_readings(app_ctx):
     raw_m = readings_frame(e, tag_id(e, "east.forebay_level"), SEED_END,
                            NOW)["value"].iloc[-1]
     assert forebay.value == f"{raw_m / FT:.2f} ft" and forebay.age == "20 s"
-    assert not forebay.problem
+    assert forebay.hour_received == "100 %" and not forebay.gaps and not forebay.problem
+    assert rows["east.do"].gaps and rows["east.do"].problem  # 60 of 360 expected at 10 s
+
+
+@pytest.mark.parametrize("poll_s, gaps", [(60.0, False), (55.0, False), (50.0, True)])
+def test_gaps_below_ninety_percent_of_the_expected_readings(app_ctx, poll_s, gaps):
+    # 60 readings in the last hour; expected 3600 / poll: 100 %, 92 %, 83 %
+    _poll(app_ctx.engine, poll_s, "west.do")
+    row = next(r for r in health.tag_rows(app_ctx.site, app_ctx.engine, NOW)
+               if r.name == "west.do")
+    assert row.gaps is gaps and row.problem is gaps
 
 
 @pytest.mark.parametrize("flag, value, status", [(3, 1.0, "suspect"), (4, 1.0, "fail"),
@@ -142,6 +161,7 @@ def test_old_readings_are_stale_and_missing_tags_say_never(app_ctx):
 
 def test_refresh_callback_filters_problems_and_needs_a_user(health_page, app_ctx):
     e = app_ctx.engine
+    _poll(e, 60.0)  # no gaps anywhere
     store_batch(e, [(tag_id(e, "west.do"), SEED_END.timestamp() + 5, 1.0, 4)])
     with signed_in("viewer"):
         feeds, tags_all, summary = health_page.refresh(1, [])
