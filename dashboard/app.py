@@ -85,4 +85,8 @@ def create_app(site: Site, engine: Engine, *, secret_key: str | None = None,
     server.secret_key = secret_key or os.environ.get("FISHWAY_SECRET_KEY") or secrets.token_hex(32)
     auth.install(server, engine, wall_only=wall_only)
     app.layout = shell
+    # Claim the pages' callbacks now: Dash hands its global callback list to whichever app
+    # serves a request first, which goes wrong when a process builds more than one app.
+    with server.test_request_context("/"):
+        app._setup_server()  # noqa: SLF001 - Dash does this on the first request
     return app
