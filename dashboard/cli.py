@@ -133,12 +133,12 @@ def _start_dashboard(database_url: str) -> Callable[[], None] | None:
 
 
 def _progress(total_days: float) -> Callable[[int, int | None, float], None]:
-    shown = [-1]
+    shown = [-10]  # the last percentage printed
 
     def progress(done: int, total: int | None, elapsed: float) -> None:
-        pct = int(100 * done / total) if total else 0
-        if pct // 10 > shown[0] or done == total:
-            shown[0] = pct // 10
+        pct = min(int(100 * done / total), 100 if done >= total else 99) if total else 0
+        if pct // 10 > shown[0] // 10 or (pct == 100 and shown[0] != 100):
+            shown[0] = pct
             print(f"fishway demo: seeding {total_days:g} day(s): {min(pct, 100):3d}% "
                   f"({done:,} readings, {elapsed:.0f} s)", file=sys.stderr, flush=True)
 
@@ -191,7 +191,9 @@ def _demo(args: argparse.Namespace) -> int:
                    for p, tags in by_period.items()]
         batches = ([r for b in step if b for r in b]
                    for step in itertools.zip_longest(*streams))
-        report = seed_history(service, batches, total=total, progress=_progress(args.days))
+        progress = _progress(args.days)
+        report = seed_history(service, batches, total=total, progress=progress)
+        progress(report.readings, report.readings, report.seconds)  # the grid may end short
         print(f"fishway demo: seeded {report.stored:,} readings of {len(plant.tags)} tags "
               f"({args.days:g} day(s), {report.reflagged:,} re-flagged by QC, "
               f"{report.recommendations} recommendations) in {report.seconds:.1f} s")

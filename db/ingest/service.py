@@ -345,7 +345,11 @@ class IngestService:
         self.groups[key].needs_backfill = True
         log = _log.warning if n == 1 else _log.debug
         log("feed %s: %s", key.feed_id, text)
-        update_feed_health(self.engine, key.feed_id, now, ok=False, error=text)
+        try:
+            update_feed_health(self.engine, key.feed_id, now, ok=False, error=text)
+        except Exception:  # the database itself may be what failed
+            _log.exception("feed %s: could not record its failure in feed_health",
+                           key.feed_id)
         return text
 
     def _poll_group(self, key: PollGroup, now: datetime, report: PollReport) -> None:
