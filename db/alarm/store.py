@@ -23,7 +23,9 @@ alarms — an evaluation by the ingest, an operator's acknowledgement on a dashb
    state (modes, limit edits, recent annunciations, flood, last evaluation).
 
 An exception anywhere rolls the whole transaction back and drops the cache (the engine may have
-changed its memory before failing), so the next session reloads the stored state.
+changed its memory before failing), so the next session reloads the stored state. Within one
+process the sessions of a store also take turns on a lock (threads of a dashboard share its
+cache).
 
 Working record: every field of an alarm's record but ``value``, ``message`` and
 ``updated_at`` (the last reading judged and its text change at each evaluation and are not
@@ -50,6 +52,7 @@ Alarm keys are unique in a database, so a database holds the alarms of one site.
 from __future__ import annotations
 
 import math
+import threading
 from collections.abc import Iterable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field, fields
@@ -211,6 +214,7 @@ class AlarmStore:
         self.tags = list(tags) if tags is not None else site_tags(site)
         self.ids = ids if ids is not None else site_ids(engine, site)
         self._cache: _Cache | None = None
+        self._mutex = threading.RLock()
         t = AlarmEngineState.__table__
         with engine.begin() as conn:
             found = conn.execute(sa.select(t.c.site_id).where(
@@ -253,6 +257,10 @@ class AlarmStore:
         """A locked transaction on the site's alarms at ``now`` (tz-aware); see the module
         docstring. Events given to :meth:`Session.add` are stored at the end of the block."""
         to_utc(now)
+        with self._mutex:  # threads of one process take turns too (they share the cache)
+            yield from self._session(now)
+
+    def _session(self, now: datetime) -> Iterator[Session]:
         try:
             with self.engine.begin() as conn:
                 version = self._lock(conn, now)
