@@ -38,7 +38,7 @@ from ops_logic.hydraulics import G
 from ops_logic.site import Site
 from ops_logic.water_quality import barometric_pressure_kpa, oxygen_solubility
 from simulator.noise import key_of, uniform, value_noise
-from simulator.scenario import Scenario
+from simulator.scenario import Scenario, seasonal_temperature_c
 
 __all__ = [
     "POWERHOUSE_LAG_S",
@@ -268,7 +268,7 @@ class Environment:
         daily)."""
         doy = self.day_of_year(t)
         hour = self.local_hour(t)
-        season = 11.0 - 7.0 * np.cos(2.0 * np.pi * (doy - 25.0) / YEAR_DAYS)
+        season = seasonal_temperature_c(doy)
         daily = np.cos(2.0 * np.pi * (hour - 16.0) / 24.0)
         drift = (0.6 * value_noise(self._k["temp"], t, 3 * DAY_S)
                  + 0.15 * value_noise(self._k["temp_fast"], t, 8 * 3600.0))

@@ -23,6 +23,8 @@ from dataclasses import dataclass, field
 from datetime import datetime, timedelta
 from typing import Literal
 
+import numpy as np
+
 from ops_logic.site import Site, load_site
 from ops_logic.tags import site_tags
 
@@ -257,11 +259,26 @@ def _pick(site: Site, role: str, fishway: int = 0, index: int | None = None) -> 
     return names[len(names) // 2 if index is None else index]
 
 
+WARM_SEASON_MIN_C = 12.0
+"""Seasonal water temperature [°C] from which the demo scenario has its summer events."""
+
+
+def seasonal_temperature_c(day_of_year: np.ndarray | float) -> np.ndarray | float:
+    """The plant's seasonal water temperature [°C]: 4 °C late January to 18 °C late July
+    (the seasonal part of :meth:`simulator.environment.Environment.temperature_c`)."""
+    return 11.0 - 7.0 * np.cos(2.0 * np.pi * (day_of_year - 25.0) / 365.2425)
+
+
 def demo_scenario(start: datetime, site: Site | None = None) -> Scenario:
     """:data:`DEMO_DAYS` days of events from ``start`` on ``site`` (default: the demo site).
 
     Faults go to tags picked by role (a middle pool gauge of the first fishway, the tailwater
     gauge, the second fishway's oxygen probe and a pool gauge), so any site works.
+
+    The warm spell and the low-oxygen event belong to the warm season: a demo started when the
+    seasonal water temperature is below :data:`WARM_SEASON_MIN_C` (winter, early spring) has
+    neither, so a December demo shows a cold river rather than 21 °C water that its own
+    climatology check would call suspect.
 
     >>> from datetime import datetime, timezone
     >>> s = demo_scenario(datetime(2026, 6, 1, tzinfo=timezone.utc))
@@ -286,10 +303,12 @@ def demo_scenario(start: datetime, site: Site | None = None) -> Scenario:
         Fault(dropout, "dropout", at(3.70), at(3.70 + 1 / 24)),
         Fault("*", "outage", at(5.10), at(5.10) + timedelta(minutes=20)),
     )
+    warm = seasonal_temperature_c(start.timetuple().tm_yday) >= WARM_SEASON_MIN_C
     return Scenario(
         faults=faults,
-        warm_spells=(WarmSpell(at(0.25), at(7.9), peak_c=21.2, ramp_s=0.8 * 86400.0),),
-        low_oxygen=(LowOxygen(at(4.05), at(4.05 + 10 / 24), min_do_mg_l=4.3),),
+        warm_spells=(WarmSpell(at(0.25), at(7.9), peak_c=21.2, ramp_s=0.8 * 86400.0),)
+        if warm else (),
+        low_oxygen=(LowOxygen(at(4.05), at(4.05 + 10 / 24), min_do_mg_l=4.3),) if warm else (),
         forebay_drops=(ForebayDrop(at(0.85), 0.45), ForebayDrop(at(6.30), 0.35)),
         debris=(DebrisPulse(at(0.40), at(1.40), 8.0, "trash_rack", fw[0]),
                 DebrisPulse(at(2.00), at(3.00), 4.0, "picket", None)),

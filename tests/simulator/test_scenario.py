@@ -150,3 +150,17 @@ def test_an_outage_makes_the_feed_fail(site):
 def test_scenario_events_check_their_fields(make):
     with pytest.raises(ValueError):
         make()
+
+
+def test_winter_demo_has_no_summer_events():
+    # the seasonal curve (4 °C late January to 18 °C late July) is our plant's, not a source's
+    from datetime import UTC, datetime
+
+    from simulator.scenario import WARM_SEASON_MIN_C, demo_scenario, seasonal_temperature_c
+
+    winter, summer = datetime(2026, 12, 1, tzinfo=UTC), datetime(2026, 7, 1, tzinfo=UTC)
+    assert seasonal_temperature_c(335) < WARM_SEASON_MIN_C <= seasonal_temperature_c(182)
+    w, s = demo_scenario(winter), demo_scenario(summer)
+    assert w.warm_spells == () and w.low_oxygen == ()
+    assert s.warm_spells and s.low_oxygen
+    assert w.faults and w.debris  # the rest of the demo's events stay
