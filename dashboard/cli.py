@@ -123,13 +123,39 @@ DEMO_MAX_DAYS = 7.0
 DEMO_FILE = "fishway-demo.sqlite"
 
 
-def _start_dashboard(database_url: str) -> Callable[[], None] | None:
-    """Start the dashboard on ``database_url`` beside the live demo; return its stop function.
+DEMO_ACCOUNTS = (("demo-operator", "operator"), ("demo-supervisor", "supervisor"))
+"""Accounts the demo creates, each with a fresh password printed at start."""
 
-    The place for the dashboard of a later issue: until it exists the demo runs without one
-    (None). It must start in the background and read the same database as the ingest.
-    """
-    return None
+
+def _start_dashboard(site: Any, engine: Any, host: str, port: int) -> Callable[[], None]:
+    """Serve the dashboard (waitress, in a background thread) on the demo's database, create
+    the demo accounts with fresh passwords, print the address and the credentials; return the
+    function that stops the server."""
+    import secrets
+    import threading
+
+    from waitress.server import create_server
+
+    from dashboard.app import create_app
+    from dashboard.auth import hash_password
+    from db.catalog import add_user, get_user
+
+    lines = []
+    for name, role in DEMO_ACCOUNTS:
+        password = secrets.token_urlsafe(9)
+        if get_user(engine, name) is None:
+            from datetime import UTC, datetime
+
+            add_user(engine, name, role, hash_password(password), now=datetime.now(UTC))
+            lines.append(f"  {role:<10}  user {name}  password {password}")
+    app = create_app(site, engine, secret_key=secrets.token_hex(32))
+    server = create_server(app.server, host=host, port=port, threads=8, ident="fishway-ops")
+    threading.Thread(target=server.run, name="dashboard", daemon=True).start()
+    print(f"fishway demo: dashboard at http://{host}:{port}/  (wall display: "
+          f"http://{host}:{port}/wall, no sign-in)", flush=True)
+    for line in lines:
+        print(line, flush=True)
+    return server.close
 
 
 def _progress(total_days: float) -> Callable[[int, int | None, float], None]:
@@ -200,14 +226,13 @@ def _demo(args: argparse.Namespace) -> int:
         if args.seed_only:
             service.close()
             return 0
-        stop_dashboard = _start_dashboard(url)
+        stop_dashboard = _start_dashboard(site, engine, args.host, args.port)
         print(f"fishway demo: the plant and the ingest run live now (Ctrl-C stops); "
               f"database {engine.url.render_as_string()}", flush=True)
         try:
             run_until_stopped(service, status=lambda line: print(line, flush=True))
         finally:
-            if stop_dashboard is not None:
-                stop_dashboard()
+            stop_dashboard()
         print("fishway demo: stopped", file=sys.stderr)
         return 0
     finally:
@@ -218,12 +243,13 @@ def register(subparsers: Any, common: argparse.ArgumentParser) -> None:
     """The dashboard package's sub-commands."""
     p = subparsers.add_parser(
         "demo", parents=[common], help="seed a demo database with simulated days, then run "
-        "the simulated plant and the ingest live",
+        "the simulated plant, the ingest and the dashboard live",
         description="Seed an embedded database (a fresh var/demo/fishway-demo.sqlite, or "
         "--database) with DAYS of simulated 10-second history of the demo site (quality-"
         "checked, with hourly recommendations), then keep the simulated plant (its demo "
-        "scenario and an operator who follows the recommendations) and the ingest running in "
-        "real time until Ctrl-C, with a status line every minute. Every recommendation is "
+        "scenario and an operator who follows the recommendations), the ingest and the "
+        "dashboard running in real time until Ctrl-C, with a status line every minute; prints "
+        "the dashboard's address and the demo accounts' passwords. Every recommendation is "
         "advisory.")
     p.add_argument("--database", metavar="URL", help="SQLAlchemy URL of the database to seed "
                    "(default: a fresh var/demo/fishway-demo.sqlite under $FISHWAY_DATA_DIR)")
@@ -232,6 +258,9 @@ def register(subparsers: Any, common: argparse.ArgumentParser) -> None:
     p.add_argument("--seed", type=int, default=0, metavar="S", help="random seed of the "
                    "simulated plant (default 0)")
     p.add_argument("--seed-only", action="store_true", help="seed the database, then exit")
+    p.add_argument("--host", default="127.0.0.1", help="address the dashboard binds to "
+                   "(default 127.0.0.1)")
+    p.add_argument("--port", type=int, default=8050, help="dashboard port (default 8050)")
     p.set_defaults(handler=_demo)
     from dashboard import commands
 

@@ -357,8 +357,3 @@ def test_internal_error_exits_1_traceback_only_with_debug(capsys, monkeypatch):
     assert code == 1 and "Traceback" in err
 
 
-def test_demo_runs_both_fishways(capsys):
-    code, out, _ = run(capsys, "demo")
-    assert code == 0
-    assert "East ladder" in out and "West ladder" in out
-    assert out.count(f"CAUTION: {ADVISORY_CAUTION}") == 2
