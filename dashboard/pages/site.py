@@ -74,6 +74,7 @@ def _editor(fishway_id: str) -> html.Section:
         html.H2("Fishway mode"),
         dcc.RadioItems(id=SITE_MODE, options=[{"label": f" {service.MODE_LABELS[m]}",
                                                "value": m} for m in service.MODES],
+                       value=service.effective_site(site, current().engine).modes[fishway_id],
                        className="site-mode"),
         html.Div(className="actions", children=[
             html.Button("Set mode", id=SITE_MODE_APPLY, className="primary")]),
@@ -186,6 +187,7 @@ def show(fishway_id: str, _version: int) -> tuple[list, Any]:
     Output(SITE_MODE, "value"),
     Input(SITE_FISHWAY, "value"),
     Input(SITE_VERSION, "data"),
+    prevent_initial_call=True,  # the layout has them already: no options swapped under a user
 )
 def editor_options(fishway_id: str, _version: int) -> tuple[list, str]:
     """The editable settings of the chosen fishway with their values in force, and its mode."""

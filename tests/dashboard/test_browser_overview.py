@@ -143,8 +143,7 @@ def test_a_supervisor_changes_a_target_and_a_viewer_cannot(fresh, sign_in, live_
     page.goto(f"{live_server}/site")
     page.wait_for_selector(".site-table")
     page.click("#site-param")
-    page.keyboard.type("Entrance head, maximum")
-    page.keyboard.press("Enter")
+    page.click("[role=option]:has(input[value='targets.entrance_head.max'])")
     page.wait_for_function("document.querySelector('#site-hint').textContent"
                            ".includes('Site file: 1.50 ft')", timeout=10_000)
     page.fill("#site-value", "1.4")
