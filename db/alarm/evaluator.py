@@ -2,9 +2,10 @@
 
 ``AlarmEvaluator(engine, site, notifier=None)`` is a callable ``evaluator(now, context=None)``
 — the signature of the ingest service's per-cycle hook (``IngestService.evaluators``, see
-:mod:`db.ingest.service`), so plugging it in is one line::
+:mod:`db.ingest.service`), so plugging it in is one line; :func:`alarm_evaluator` also gives it
+the site's e-mail channel when the site file has a ``[notify]`` section::
 
-    service.evaluators.append(AlarmEvaluator(engine, site, notifier=notifier))
+    service.evaluators.append(alarm_evaluator(engine, site))
 
 Everything it needs comes from the database (the context is accepted and not needed), so the
 same evaluator gives the same alarms from the ingest hook, a scheduled job of its own or a test.
@@ -35,11 +36,12 @@ from sqlalchemy.engine import Engine
 from db.alarm.inputs import InputReader
 from db.alarm.overrides import read_overrides, sync_overrides, table_version
 from db.alarm.store import AlarmStore, SiteIds
+from db.notify import EmailNotifier
 from ops_logic.alarms.engine import FloodStatus
 from ops_logic.alarms.states import AlarmEvent
 from ops_logic.site import Site
 
-__all__ = ["AlarmEvaluator", "Notifier"]
+__all__ = ["AlarmEvaluator", "Notifier", "alarm_evaluator"]
 
 _log = logging.getLogger("db.alarm")
 
@@ -110,3 +112,14 @@ class AlarmEvaluator:
         for line in sorted(known - old_known):
             _log.warning("alarm inputs: %s", line)
         self._logged = (skipped, known)
+
+
+def alarm_evaluator(engine: Engine, site: Site, *, ids: SiteIds | None = None
+                    ) -> AlarmEvaluator:
+    """The evaluator of ``site`` with its e-mail channel (:class:`db.notify.EmailNotifier`,
+    health in ``feed_health``) when the site file configures one."""
+    notifier = None
+    if site.notify is not None:
+        notifier = EmailNotifier(site.notify, site.site.name, time_zone=site.site.time_zone,
+                                 engine=engine)
+    return AlarmEvaluator(engine, site, notifier=notifier, ids=ids)

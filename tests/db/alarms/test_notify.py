@@ -214,3 +214,12 @@ def test_the_notify_section_of_a_site_file():
     assert err.value.errors == [("notify", "no password in the site file: put it in an "
                                  "environment variable and name that variable in "
                                  "password_env")]
+
+
+def test_the_evaluator_of_a_site_with_a_notify_section(db_engine, demo_site):
+    from db.alarm.evaluator import alarm_evaluator
+
+    assert alarm_evaluator(db_engine, demo_site).notifier is None  # the demo has none
+    site = demo_site.model_copy(update={"notify": config(25)})
+    ev = alarm_evaluator(db_engine, site)
+    assert isinstance(ev.notifier, EmailNotifier) and ev.notifier.engine is db_engine

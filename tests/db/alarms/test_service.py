@@ -255,8 +255,8 @@ def test_concurrent_writers_lose_no_update(db_engine, demo_site, evaluator, serv
     t = threading.Thread(target=cycles)
     t.start()
     service.acknowledge(DO_LOW, users["operator"], now=at(8))
-    for _ in range(5):
-        service.shelve(TRIP, users["operator"], "checking", 600, now=at(8))
+    for _ in range(5):  # an hour: no shelve may expire in the evaluator's 20 minutes
+        service.shelve(TRIP, users["operator"], "checking", 3600, now=at(8))
         service.unshelve(TRIP, users["operator"], now=at(8))
     service.shelve(TRIP, users["operator"], "pump under repair", 28800, now=at(8))
     t.join(60)
@@ -275,3 +275,31 @@ def test_now_defaults_to_the_wall_clock(db_engine, evaluator, service, users, fe
     before = datetime.now(UTC)
     ev = service.remove_from_service(DO_LOW, users["operator"], "probe out")
     assert before <= ev[0].ts <= datetime.now(UTC)
+
+
+def test_threads_sharing_one_service_take_turns(db_engine, demo_site, evaluator, service,
+                                                users, feed, at):
+    """A dashboard's request threads share one service (and its cached state)."""
+    run(evaluator, feed, at, [0])
+    start = version(db_engine)
+    keys = ["do_low@east", "do_low@west", "do_low_low@east", "do_low_low@west"]
+    errors = []
+
+    def worker(key):
+        try:
+            for _ in range(5):
+                service.shelve(key, users["operator"], "inspection", 600, now=at(1))
+                service.unshelve(key, users["operator"], now=at(1))
+        except Exception as exc:  # reported below
+            errors.append(exc)
+
+    threads = [threading.Thread(target=worker, args=(k,)) for k in keys]
+    for t in threads:
+        t.start()
+    for t in threads:
+        t.join(60)
+    assert errors == [] and version(db_engine) == start + 40
+    for key in keys:
+        assert history(db_engine, at, key)["kind"].tolist() == ["shelved", "unshelved"] * 5
+    assert {r.state for k, r in AlarmStore(db_engine, demo_site).load().alarms.items()
+            if k in keys} == {AlarmState.NORMAL}
