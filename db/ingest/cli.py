@@ -185,7 +185,10 @@ def _ingest(args: argparse.Namespace) -> int:
             lambda: datetime.now(UTC))
         feeds = build_feeds(site, simulated_factory=simulated_factory(start),
                             base_dir=site_path.parent)
-        service = IngestService(site, engine, feeds, clock=clock, tag_ids=tag_ids)
+        from db.alarm.evaluator import alarm_evaluator  # noqa: PLC0415 - heavy, only here
+
+        service = IngestService(site, engine, feeds, clock=clock, tag_ids=tag_ids,
+                                evaluators=(alarm_evaluator(engine, site),))
         if args.once:
             return _once(service, clock())
         print(f"fishway ingest: {site.site.name} into {engine.url.render_as_string()} "
