@@ -14,6 +14,7 @@ from datetime import datetime
 from zoneinfo import ZoneInfo
 
 import numpy as np
+import pandas as pd
 import plotly.graph_objects as go
 from dash import Patch
 
@@ -45,12 +46,21 @@ def axis_kinds(series: Sequence[Series]) -> list[str]:
 def local_x(ts: Sequence[datetime] | object, time_zone: str) -> list[str]:
     """Aware times as the site's wall-clock strings (what the chart's x axis shows).
 
+    Converted as whole arrays (pandas for the time zone, numpy for the text), not one
+    ``datetime`` at a time: a year-long trend has thousands of points.
+
     >>> import pandas as pd
     >>> local_x(pd.DatetimeIndex(["2026-07-15 12:00"], tz="UTC"), "Etc/GMT+8")
     ['2026-07-15 04:00:00']
     """
-    tz = ZoneInfo(time_zone)
-    return [t.astimezone(tz).strftime("%Y-%m-%d %H:%M:%S") for t in ts]  # type: ignore[attr-defined]
+    idx = ts if isinstance(ts, pd.DatetimeIndex) else pd.to_datetime(list(ts), utc=True)  # type: ignore[call-overload]
+    if len(idx) == 0:
+        return []
+    wall = idx.tz_convert(ZoneInfo(time_zone)).tz_localize(None).to_numpy()
+    text = np.datetime_as_string(wall.astype("datetime64[s]"), unit="s").astype("S19")
+    chars = text.view(np.uint8).reshape(-1, 19).copy()
+    chars[:, 10] = ord(" ")  # "YYYY-MM-DDTHH:MM:SS" -> "YYYY-MM-DD HH:MM:SS"
+    return chars.view("S19").ravel().astype(str).tolist()
 
 
 def _axis_name(k: int) -> str:
@@ -72,16 +82,18 @@ def trend_figure(series: Sequence[Series], units: UnitSystem, time_zone: str, *,
     ([1.15, 1.64], 'rect')
     """
     kinds = axis_kinds(series)
-    fig = go.Figure()
+    traces: list[dict] = []
+    shapes: list[dict] = []
     for i, s in enumerate(series):
         k = kinds.index(s.option.kind)
         unit = unit_label(s.option.kind, units)
         y = np.asarray(to_display(s.option.kind, s.value_si, units), dtype="float64")
         name = s.option.label + (f" — {s.note}" if s.note else "")
-        fig.add_trace(go.Scatter(
-            x=local_x(s.ts, time_zone), y=y.tolist(), name=name, mode="lines",
-            yaxis=_axis_name(k), line={"color": PENS[i % len(PENS)], "width": 2},
-            hovertemplate=f"%{{y:.3f}} {unit}<extra>{s.option.key}</extra>"))
+        traces.append({
+            "type": "scatter", "x": local_x(s.ts, time_zone), "y": y.tolist(), "name": name,
+            "mode": "lines", "yaxis": _axis_name(k),
+            "line": {"color": PENS[i % len(PENS)], "width": 2},
+            "hovertemplate": f"%{{y:.3f}} {unit}<extra>{s.option.key}</extra>"})
         short = s.option.key.split(".", 1)[-1].split(":", 1)[-1].replace("_", " ")
         for g in s.option.guides:
             text = g.label if len(series) == 1 else f"{short}: {g.label}"
@@ -89,21 +101,22 @@ def trend_figure(series: Sequence[Series], units: UnitSystem, time_zone: str, *,
             lo = None if g.low is None else float(to_display(s.option.kind, g.low, units))
             hi = None if g.high is None else float(to_display(s.option.kind, g.high, units))
             if g.style == "band" and lo is not None and hi is not None:
-                fig.add_shape(type="rect", xref="paper", x0=0, x1=1, yref=yref, y0=lo, y1=hi,
-                              fillcolor="#c9ccc6", opacity=0.45, line={"width": 0},
-                              layer="below",
-                              label={"text": text, "textposition": "top left",
-                                     "font": {"size": 12, "color": "#5b6166"}})
+                shapes.append({"type": "rect", "xref": "paper", "x0": 0, "x1": 1,
+                               "yref": yref, "y0": lo, "y1": hi, "fillcolor": "#c9ccc6",
+                               "opacity": 0.45, "line": {"width": 0}, "layer": "below",
+                               "label": {"text": text, "textposition": "top left",
+                                         "font": {"size": 12, "color": "#5b6166"}}})
                 continue
             dash, colour, width = _LINE.get(g.style, _LINE["qc"])
             for v in (lo, hi):
                 if v is None:
                     continue
-                fig.add_shape(type="line", xref="paper", x0=0, x1=1, yref=yref, y0=v, y1=v,
-                              line={"dash": dash, "color": colour, "width": width},
-                              label={"text": text, "textposition": "end",
-                                     "yanchor": "bottom",
-                                     "font": {"size": 12, "color": colour}})
+                shapes.append({"type": "line", "xref": "paper", "x0": 0, "x1": 1,
+                               "yref": yref, "y0": v, "y1": v,
+                               "line": {"dash": dash, "color": colour, "width": width},
+                               "label": {"text": text, "textposition": "end",
+                                         "yanchor": "bottom",
+                                         "font": {"size": 12, "color": colour}}})
     tz_label = time_zone
     extra_left = len([k for k in range(2, len(kinds)) if k % 2 == 0])
     extra_right = len([k for k in range(3, len(kinds)) if k % 2 == 1])
@@ -114,24 +127,30 @@ def trend_figure(series: Sequence[Series], units: UnitSystem, time_zone: str, *,
         "font": {"family": "DejaVu Sans, Arial, sans-serif", "size": 15, "color": "#1f2326"},
         "legend": {"orientation": "h", "y": 1.02, "yanchor": "bottom", "x": 0},
         "hovermode": "x unified", "uirevision": revision,
-        "xaxis": {"type": "date", "gridcolor": "#cfd0cc", "title": f"Site time ({tz_label})",
+        "xaxis": {"type": "date", "gridcolor": "#cfd0cc",
+                  "title": {"text": f"Site time ({tz_label})"},
                   "range": local_x([start, end], time_zone)},
     }
+    if shapes:
+        layout["shapes"] = shapes
     for k, kind in enumerate(kinds):
         unit = unit_label(kind, units)
         axis: dict = {"title": {"text": f"{_AXIS_TITLE.get(kind, kind)}"
                                          + (f" ({unit})" if unit else "")},
-                      "gridcolor": "#cfd0cc" if k == 0 else None, "showgrid": k == 0,
-                      "zeroline": False}
-        if k > 0:
+                      "showgrid": k == 0, "zeroline": False}
+        if k == 0:
+            axis["gridcolor"] = "#cfd0cc"
+        else:
             right = bool(k % 2)
             axis.update(overlaying="y", side="right" if right else "left", anchor="free",
-                        autoshift=True, tickmode="auto",
-                        # clear of the neighbouring axis' title too (autoshift pads the ticks)
-                        shift=(60 if right else -60) if k > 1 else None)
+                        autoshift=True, tickmode="auto")
+            if k > 1:  # clear of the neighbouring axis' title too (autoshift pads the ticks)
+                axis["shift"] = 60 if right else -60
         layout["yaxis" if k == 0 else f"yaxis{k + 1}"] = axis
-    fig.update_layout(**layout)
-    return fig
+    # Built as plain dicts and lists and wrapped without plotly's per-value validation (it
+    # walks every point of every trace, the larger part of this callback's time); the keys
+    # and values are those the validated figure had (None values left out, as plotly does).
+    return go.Figure({"data": traces, "layout": layout}, _validate=False)
 
 
 def trend_patch(series: Sequence[Series], units: UnitSystem, time_zone: str) -> Patch:

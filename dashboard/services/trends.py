@@ -125,7 +125,7 @@ def to_display(kind: str, values: np.ndarray | float, units: UnitSystem) -> np.n
     return values
 
 
-def _guides(ctx: AppContext, t: pd.Series) -> list[Guide]:
+def _guides(ctx: AppContext, t: dict) -> list[Guide]:
     f = ctx.site.fishway(t["fishway"]) if t["fishway"] in ctx.ladders else None
     out: list[Guide] = []
     role = t["role"]
@@ -178,20 +178,25 @@ def _guides(ctx: AppContext, t: pd.Series) -> list[Guide]:
 
 def series_options(ctx: AppContext) -> list[SeriesOption]:
     """Every series the page offers, fishway by fishway (catalogue order, derived last)."""
-    tags = tags_frame(ctx.engine)
+    frame = tags_frame(ctx.engine)
     names = {v: k for k, v in fishway_db_ids(ctx.engine, ctx.site.site.name).items()}
-    tags = tags[tags["fishway_id"].isin(list(names))].copy()
-    tags["fishway"] = [names[int(i)] for i in tags["fishway_id"]]
-    by_name = {row["name"]: (int(i), row) for i, row in tags.iterrows()}
+    # plain dicts, not DataFrame rows: this runs on every draw, zoom and export
+    tags: list[tuple[int, dict]] = []
+    for i, row in zip(frame.index.tolist(), frame.to_dict("records"), strict=True):
+        fid = row["fishway_id"]
+        if pd.notna(fid) and int(fid) in names:
+            tags.append((int(i), {**row, "fishway": names[int(fid)]}))
+    by_name = {row["name"]: (i, row) for i, row in tags}
     out: list[SeriesOption] = []
     for f in ctx.site.fishways:
-        mine = tags[tags["fishway"] == f.id]
-        for i, t in mine.iterrows():
+        for i, t in tags:
+            if t["fishway"] != f.id:
+                continue
             kind = _KIND.get(t["quantity"], "other")
             label = f"{f.name} · {t['name'].split('.', 1)[1].replace('_', ' ')}"
             if t["source"] == "manual":
                 label += " (manual)"
-            out.append(SeriesOption(t["name"], label, kind, (int(i),),
+            out.append(SeriesOption(t["name"], label, kind, (i,),
                                     float(t["poll_period_s"]), tuple(_guides(ctx, t))))
         ladder = ctx.ladder(f.id)
         entrance = f"{f.id}.{ladder.pool_ids[-1]}.level"
