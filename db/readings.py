@@ -52,9 +52,11 @@ np.float64(101.26)
 """
 from __future__ import annotations
 
+import functools
 import math
 from collections.abc import Iterable, Sequence
 from datetime import datetime
+from itertools import chain
 from operator import itemgetter
 
 import numpy as np
@@ -66,7 +68,7 @@ from db.arrays import fetch_array
 from db.engine import is_postgresql, is_sqlite
 from db.models import QARTOD_FLAGS
 from db.partitions import ensure_partitions_ms
-from db.rollups import rollup_deltas, upsert_rollups_sql
+from db.rollups import ROLLUP_COLUMNS, rollup_deltas, upsert_rollups_sql
 from db.types import ms_to_index, to_epoch_ms
 
 __all__ = ["latest_values", "readings_frame", "store_batch", "validate_batch"]
@@ -197,14 +199,58 @@ def _values_for_db(value: np.ndarray) -> list:
     return out
 
 
-_SQLITE_INSERT = ("INSERT INTO readings (tag_id, ts_ms, value, flag) VALUES (?, ?, ?, ?) "
-                  "ON CONFLICT DO NOTHING")
+ROWS_PER_STATEMENT = 50
+"""Rows bound per SQLite statement: multi-row VALUES cut the per-statement cost of
+``executemany`` (measured about three times faster than one row per statement at 50)."""
+
+
+def _interleave(columns: list[list]) -> list:
+    """Columns of equal length as one flat row-major parameter list."""
+    width = len(columns)
+    flat: list = [None] * (width * len(columns[0]))
+    for i, col in enumerate(columns):
+        flat[i::width] = col
+    return flat
+
+
+def _executemany_multirow(cur, sql_of, flat: list, width: int) -> int:
+    """Run ``sql_of(k)`` (a statement taking ``k`` rows of ``width`` parameters) over the rows
+    of the flat row-major parameter list, :data:`ROWS_PER_STATEMENT` rows a statement; return
+    the rows changed."""
+    n = len(flat) // width
+    if n == 0:
+        return 0
+    k = ROWS_PER_STATEMENT
+    full, step = n // k, width * k
+    changed = 0
+    if full:
+        cur.executemany(sql_of(k), (flat[i * step:(i + 1) * step] for i in range(full)))
+        changed += cur.rowcount
+    if n > full * k:
+        cur.execute(sql_of(n - full * k), flat[full * step:])
+        changed += cur.rowcount
+    return changed
+
+
+@functools.lru_cache(maxsize=64)
+def _readings_insert_sql(rows: int) -> str:
+    return ("INSERT INTO readings (tag_id, ts_ms, value, flag) VALUES "
+            + ", ".join(["(?, ?, ?, ?)"] * rows) + " ON CONFLICT DO NOTHING")
 
 
 def _insert_rows(cur, tag, ts_ms, value, flag) -> int:
-    cur.executemany(_SQLITE_INSERT, zip(tag.tolist(), ts_ms.tolist(), _values_for_db(value),
-                                        flag.tolist(), strict=True))
-    return cur.rowcount
+    return _executemany_multirow(cur, _readings_insert_sql, _interleave([
+        tag.tolist(), ts_ms.tolist(), _values_for_db(value), flag.tolist()]), 4)
+
+
+def _upsert_rollups_sqlite(cur, tag, ts_ms, value, flag) -> None:
+    flat = list(chain.from_iterable(rollup_deltas(tag, ts_ms, value, flag)))
+    _executemany_multirow(cur, _rollup_sql_sqlite, flat, len(ROLLUP_COLUMNS))
+
+
+@functools.lru_cache(maxsize=64)
+def _rollup_sql_sqlite(rows: int) -> str:
+    return upsert_rollups_sql("sqlite", rows)
 
 
 def _store_sqlite(engine: Engine, tag, ts_ms, value, flag) -> int:
@@ -226,8 +272,7 @@ def _store_sqlite(engine: Engine, tag, ts_ms, value, flag) -> int:
                     raise RuntimeError("readings changed during a locked batch")
             cur.execute("RELEASE fishway_batch")
             if tag.size:
-                cur.executemany(upsert_rollups_sql("sqlite"),
-                                rollup_deltas(tag, ts_ms, value, flag))
+                _upsert_rollups_sqlite(cur, tag, ts_ms, value, flag)
             cur.execute("COMMIT")
         except BaseException:
             if con.in_transaction:

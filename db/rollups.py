@@ -35,8 +35,8 @@ from sqlalchemy.engine import Engine
 
 from db.types import ms_to_index, to_epoch_ms
 
-__all__ = ["RESOLUTIONS_S", "ROLLUP_COLUMNS", "rollup_deltas", "rollups_frame",
-           "upsert_rollups_sql"]
+__all__ = ["RESOLUTIONS_S", "ROLLUP_COLUMNS", "rollup_delta_columns", "rollup_deltas",
+           "rollups_frame", "upsert_rollups_sql"]
 
 #: Rollup resolutions in seconds: 1 min, 15 min, 1 h, 1 day.
 RESOLUTIONS_S = (60, 900, 3600, 86400)
@@ -53,6 +53,48 @@ def _first_true_per_group(mask: np.ndarray, group: np.ndarray, n_groups: int) ->
     out = idx[first]
     assert out.size == n_groups
     return out
+
+
+def rollup_delta_columns(tag_id: np.ndarray, ts_ms: np.ndarray, value: np.ndarray,
+                         flag: np.ndarray, resolutions_s: tuple[int, ...] = RESOLUTIONS_S
+                         ) -> list[list]:
+    """The rows of :func:`rollup_deltas` as columns (lists of Python scalars, in
+    :data:`ROLLUP_COLUMNS` order), for writers that bind many rows per statement.
+
+    >>> cols = rollup_delta_columns(np.array([7, 7]), np.array([0, 61_000]),
+    ...                             np.array([2.0, 5.0]), np.array([1, 3]), (60,))
+    >>> cols[2], cols[3]
+    ([0, 60000], [1, 1])
+    """
+    keep = np.isfinite(value)
+    if not keep.all():
+        tag_id, ts_ms, value, flag = tag_id[keep], ts_ms[keep], value[keep], flag[keep]
+    if tag_id.size == 0:
+        return [[] for _ in ROLLUP_COLUMNS]
+    order = np.lexsort((ts_ms, tag_id))
+    tag_id, ts_ms, value, flag = tag_id[order], ts_ms[order], value[order], flag[order]
+    parts: list[tuple[np.ndarray, ...]] = []
+    for res_s in resolutions_s:
+        width = res_s * 1000
+        bucket = (ts_ms // width) * width
+        starts = np.flatnonzero(np.concatenate((
+            [True], (tag_id[1:] != tag_id[:-1]) | (bucket[1:] != bucket[:-1]))))
+        ends = np.concatenate((starts[1:], [ts_ms.size])) - 1
+        n_groups = starts.size
+        group = np.repeat(np.arange(n_groups), np.diff(np.concatenate((starts, [ts_ms.size]))))
+        vmin = np.minimum.reduceat(value, starts)
+        vmax = np.maximum.reduceat(value, starts)
+        imin = _first_true_per_group(value == vmin[group], group, n_groups)
+        imax = _first_true_per_group(value == vmax[group], group, n_groups)
+        columns = (
+            tag_id[starts], np.full(n_groups, res_s), bucket[starts], np.diff(
+                np.concatenate((starts, [ts_ms.size]))),
+            np.add.reduceat(value, starts), vmin, ts_ms[imin], vmax, ts_ms[imax],
+            value[starts], ts_ms[starts], value[ends], ts_ms[ends],
+            np.maximum.reduceat(flag, starts),
+        )
+        parts.append(columns)
+    return [np.concatenate([p[i] for p in parts]).tolist() for i in range(len(ROLLUP_COLUMNS))]
 
 
 def rollup_deltas(tag_id: np.ndarray, ts_ms: np.ndarray, value: np.ndarray,
@@ -84,35 +126,8 @@ def rollup_deltas(tag_id: np.ndarray, ts_ms: np.ndarray, value: np.ndarray,
     >>> rows[1][:4]
     (7, 60, 60000, 1)
     """
-    keep = np.isfinite(value)
-    if not keep.all():
-        tag_id, ts_ms, value, flag = tag_id[keep], ts_ms[keep], value[keep], flag[keep]
-    if tag_id.size == 0:
-        return []
-    order = np.lexsort((ts_ms, tag_id))
-    tag_id, ts_ms, value, flag = tag_id[order], ts_ms[order], value[order], flag[order]
-    rows: list[tuple] = []
-    for res_s in resolutions_s:
-        width = res_s * 1000
-        bucket = (ts_ms // width) * width
-        starts = np.flatnonzero(np.concatenate((
-            [True], (tag_id[1:] != tag_id[:-1]) | (bucket[1:] != bucket[:-1]))))
-        ends = np.concatenate((starts[1:], [ts_ms.size])) - 1
-        n_groups = starts.size
-        group = np.repeat(np.arange(n_groups), np.diff(np.concatenate((starts, [ts_ms.size]))))
-        vmin = np.minimum.reduceat(value, starts)
-        vmax = np.maximum.reduceat(value, starts)
-        imin = _first_true_per_group(value == vmin[group], group, n_groups)
-        imax = _first_true_per_group(value == vmax[group], group, n_groups)
-        columns = (
-            tag_id[starts], np.full(n_groups, res_s), bucket[starts], np.diff(
-                np.concatenate((starts, [ts_ms.size]))),
-            np.add.reduceat(value, starts), vmin, ts_ms[imin], vmax, ts_ms[imax],
-            value[starts], ts_ms[starts], value[ends], ts_ms[ends],
-            np.maximum.reduceat(flag, starts),
-        )
-        rows.extend(zip(*(c.tolist() for c in columns), strict=True))
-    return rows
+    return list(zip(*rollup_delta_columns(tag_id, ts_ms, value, flag, resolutions_s),
+                    strict=True))
 
 
 _PG_ARRAY_TYPES = ("integer", "integer", "bigint", "integer", "double precision",
@@ -120,15 +135,17 @@ _PG_ARRAY_TYPES = ("integer", "integer", "bigint", "integer", "double precision"
                    "bigint", "double precision", "bigint", "smallint")
 
 
-def upsert_rollups_sql(dialect: str) -> str:
+def upsert_rollups_sql(dialect: str, rows: int = 1) -> str:
     """The merge statement for rollup delta rows.
 
-    SQLite: one row per execution with ``?`` placeholders (for ``executemany``).
+    SQLite: ``rows`` rows per execution with ``?`` placeholders (for ``executemany``; the
+    rows of one execution must have distinct keys).
     PostgreSQL: all rows in one execution, one binary array parameter per column (``unnest``).
     """
     if dialect == "sqlite":
         least, greatest = "min", "max"
-        source = f"VALUES ({', '.join(['?'] * len(ROLLUP_COLUMNS))})"
+        one = f"({', '.join(['?'] * len(ROLLUP_COLUMNS))})"
+        source = "VALUES " + ", ".join([one] * rows)
     else:
         least, greatest = "LEAST", "GREATEST"
         arrays = ", ".join(f"%b::{t}[]" for t in _PG_ARRAY_TYPES)
