@@ -362,8 +362,22 @@ def worst_criterion(criteria: list[Criterion]) -> Criterion | None:
     >>> worst_criterion([a, b]).name
     'entrance_head'
     """
-    banded = [c for c in criteria if c.min is not None or c.max is not None]
-    return min(banded, key=lambda c: _margin(c, c.value)) if banded else None
+    worst, least = None, math.inf
+    for c in criteria:  # min() over _margin, inlined: some 170 criteria a refresh
+        lo, hi = c.min, c.max
+        if lo is None and hi is None:
+            continue
+        ref = (hi - lo) if lo is not None and hi is not None else abs(hi if hi is not None
+                                                                       else lo)
+        ref = ref if ref and ref > 0 else 1.0
+        m = math.inf
+        if lo is not None:
+            m = min(m, (c.value - lo) / ref)  # min(), as _margin: a NaN value gives inf
+        if hi is not None:
+            m = min(m, (hi - c.value) / ref)
+        if worst is None or m < least:
+            worst, least = c, m
+    return worst
 
 
 _CRITERION_LABELS = {"forebay_level": "Forebay level", "tailwater_level": "Tailwater level",
@@ -401,12 +415,27 @@ class _Inputs:
     now_ms: int
 
 
+_by_role: dict[int, tuple[Mapping, dict[tuple[str, str], list[tuple[TagDef, int, float]]]]] = {}
+"""Per catalogue mapping of :func:`_tags`: its entries grouped by (fishway, role)."""
+
+
 def _find(tags: Mapping[str, tuple[TagDef, int, float]], fishway_id: str, role: str,
           **match: str | None) -> tuple[TagDef, int, float] | None:
-    for entry in tags.values():
-        t = entry[0]
-        if t.fishway_id == fishway_id and t.role == role and all(
-                getattr(t, k) == v for k, v in match.items()):
+    """The first entry of ``tags`` (in its order) of this fishway and role whose fields equal
+    ``match``. The entries are grouped by (fishway, role) once per catalogue mapping: this is
+    asked some twenty times a refresh."""
+    hit = _by_role.get(id(tags))
+    if hit is None or hit[0] is not tags:
+        groups: dict[tuple[str, str], list[tuple[TagDef, int, float]]] = {}
+        for entry in tags.values():
+            groups.setdefault((entry[0].fishway_id, entry[0].role), []).append(entry)
+        with _lock:
+            if len(_by_role) > 16:
+                _by_role.clear()
+            _by_role[id(tags)] = (tags, groups)
+        hit = (tags, groups)
+    for entry in hit[1].get((fishway_id, role), ()):
+        if all(getattr(entry[0], k) == v for k, v in match.items()):
             return entry
     return None
 
