@@ -71,7 +71,7 @@ from db.partitions import ensure_partitions_ms
 from db.rollups import ROLLUP_COLUMNS, rollup_deltas, upsert_rollups_sql
 from db.types import ms_to_index, to_epoch_ms
 
-__all__ = ["latest_values", "readings_frame", "store_batch", "validate_batch"]
+__all__ = ["latest_values", "readings_frame", "store_arrays", "store_batch", "validate_batch"]
 
 FLAG_MISSING = 9
 
@@ -123,17 +123,22 @@ def validate_batch(rows: Sequence[Sequence]) -> tuple[np.ndarray, ...]:
         for i, f in enumerate(flags):
             if isinstance(f, bool) or not isinstance(f, int | np.integer):
                 raise _bad(i, f"flag {f!r} is not a QARTOD flag")
-    flag = flag_raw.astype("int64")
+    return _checked_sorted(tag, ts_ms, value, flag_raw.astype("int64"))
+
+
+def _checked_sorted(tag: np.ndarray, ts_ms: np.ndarray, value: np.ndarray,
+                    flag: np.ndarray) -> tuple[np.ndarray, ...]:
+    """The array checks of :func:`validate_batch`; the arrays sorted by key, deduplicated."""
     bad = ~np.isin(flag, QARTOD_FLAGS)
     if bad.any():
         i = int(np.flatnonzero(bad)[0])
-        raise _bad(i, f"flag {flags[i]!r} is not a QARTOD flag {QARTOD_FLAGS}")
+        raise _bad(i, f"flag {int(flag[i])!r} is not a QARTOD flag {QARTOD_FLAGS}")
     if np.isinf(value).any():
         raise _bad(int(np.flatnonzero(np.isinf(value))[0]), "infinite value")
     missing = np.isnan(value) & (flag != FLAG_MISSING)
     if missing.any():
         i = int(np.flatnonzero(missing)[0])
-        raise _bad(i, f"missing value with flag {flags[i]} (a missing value carries flag 9)")
+        raise _bad(i, f"missing value with flag {int(flag[i])} (a missing value carries flag 9)")
     order = np.lexsort((np.arange(tag.size), ts_ms, tag))
     tag, ts_ms, value, flag = tag[order].astype("int64"), ts_ms[order], value[order], flag[order]
     keep = np.concatenate(([True], (tag[1:] != tag[:-1]) | (ts_ms[1:] != ts_ms[:-1])))
@@ -335,6 +340,45 @@ def store_batch(engine: Engine, rows: Iterable[Sequence]) -> int:
     """
     tag, ts_ms, value, flag = validate_batch(rows if isinstance(rows, list | tuple)
                                              else list(rows))
+    return _store(engine, tag, ts_ms, value, flag)
+
+
+def store_arrays(engine: Engine, tag_id: np.ndarray, ts_ms: np.ndarray, value: np.ndarray,
+                 flag: np.ndarray) -> int:
+    """:func:`store_batch` for a batch given as columns: tag ids (int array), times [epoch
+    ms] (int array), values (float array, NaN: missing, with flag 9), QARTOD flags (int
+    array). Same checks, guarantees and return value; no per-row Python objects are made.
+
+    >>> from db.engine import make_engine
+    >>> from db.migrate import upgrade
+    >>> from db.catalog import add_site, add_fishway, add_tag
+    >>> eng = make_engine("sqlite://"); _ = upgrade(eng)
+    >>> tag = add_tag(eng, add_fishway(eng, add_site(eng, "Demo site"), "Left bank"),
+    ...               "LB.pool1.level", "water_level", "m", poll_period_s=10)
+    >>> store_arrays(eng, np.array([tag, tag]), np.array([1767225600000, 1767225610000]),
+    ...              np.array([101.25, np.nan]), np.array([1, 9]))
+    2
+    >>> eng.dispose()
+    """
+    tag = np.asarray(tag_id)
+    ts = np.asarray(ts_ms)
+    if tag.ndim != 1 or tag.shape != ts.shape or tag.shape != np.shape(value) \
+            or tag.shape != np.shape(flag):
+        raise ValueError("store_arrays needs four 1-D arrays of one length; nothing was stored")
+    if tag.size == 0:
+        return 0
+    if tag.dtype.kind not in "iu" or ts.dtype.kind not in "iu":
+        raise ValueError("tag ids and times [epoch ms] must be integer arrays; "
+                         "nothing was stored")
+    flag_arr = np.asarray(flag)
+    if flag_arr.dtype.kind not in "iu":
+        raise ValueError("flags must be an integer array; nothing was stored")
+    return _store(engine, *_checked_sorted(tag, ts.astype("int64"),
+                                           np.asarray(value, dtype="float64"),
+                                           flag_arr.astype("int64")))
+
+
+def _store(engine: Engine, tag, ts_ms, value, flag) -> int:
     if tag.size == 0:
         return 0
     if is_sqlite(engine):

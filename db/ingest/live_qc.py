@@ -56,9 +56,11 @@ from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
+import pandas as pd
 
 from ops_logic.qc import (
     QcThresholds,
+    climatology_test,
     flat_line_test,
     gross_range_test,
     qc_aggregate,
@@ -164,19 +166,52 @@ class _TagState:
 @dataclass
 class Evaluation:
     """Result of :meth:`LiveQc.evaluate`: ``rows`` ``(tag_id, ts_s, value, flag)`` for
-    :func:`db.readings.store_batch`, ``reflags`` ``(tag_id, ts_ms, flag)``, and what the
+    :func:`db.readings.store_batch` (the same as columns: :meth:`arrays`, for
+    :func:`db.readings.store_arrays`), ``reflags`` ``(tag_id, ts_ms, flag)``, and what the
     windows take on :meth:`LiveQc.commit`."""
 
-    rows: list[tuple[int, float, float, int]] = field(default_factory=list)
+    _chunks: list[tuple[int, np.ndarray, np.ndarray, np.ndarray]] = field(default_factory=list)
     reflags: list[tuple[int, int, int]] = field(default_factory=list)
     unknown: list[str] = field(default_factory=list)
     newest_ms: dict[str, int] = field(default_factory=dict)
     _append: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]] = field(default_factory=dict)
     _last_flag: dict[str, int] = field(default_factory=dict)
 
+    def __len__(self) -> int:
+        return sum(c[1].size for c in self._chunks)
+
+    @property
+    def rows(self) -> list[tuple[int, float, float, int]]:
+        """The rows to store, ``(tag_id, ts_s, value, flag)`` (NaN value: missing)."""
+        return [row for tag_id, ms, x, flags in self._chunks
+                for row in zip([tag_id] * ms.size, (ms / 1000.0).tolist(), x.tolist(),
+                               flags.tolist(), strict=True)]
+
+    def arrays(self) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+        """The rows to store as columns: tag ids, times [epoch ms], values, flags."""
+        if not self._chunks:
+            empty = np.empty(0, dtype=np.int64)
+            return empty, empty, np.empty(0), empty
+        return (np.concatenate([np.full(c[1].size, c[0], dtype=np.int64) for c in self._chunks]),
+                np.concatenate([c[1] for c in self._chunks]),
+                np.concatenate([c[2] for c in self._chunks]),
+                np.concatenate([c[3] for c in self._chunks]).astype(np.int64))
+
+
+_RANK_OF = np.zeros(256, dtype=np.int8)
+_RANK_OF[list(_RANK)] = list(_RANK.values())
+_FLAG_OF = np.array(sorted(_RANK, key=_RANK.__getitem__), dtype=np.uint8)
+
 
 def _aggregate(parts: list[np.ndarray], n: int) -> np.ndarray:
-    return qc_aggregate(parts) if parts else np.full(n, NOT_EVALUATED, dtype=np.uint8)
+    """:func:`ops_logic.qc.qc_aggregate` of the flags the tests returned (valid QARTOD flags
+    by construction, so its input checks are skipped): the highest ranked flag wins."""
+    if not parts:
+        return np.full(n, NOT_EVALUATED, dtype=np.uint8)
+    rank = _RANK_OF[parts[0]]
+    for p in parts[1:]:
+        np.maximum(rank, _RANK_OF[p], out=rank)
+    return _FLAG_OF[rank]
 
 
 class LiveQc:
@@ -205,6 +240,8 @@ class LiveQc:
         self.pairs = [(a, b) for a, b in pairs if a in tags and b in tags]
         self.pair_thresholds = pair_thresholds
         self.pair_tolerance_ms = dict(pair_tolerance_ms or {})
+        self._month_ms = np.empty(0, dtype=np.int64)  # local month starts [epoch ms]
+        self._month_no = np.empty(0, dtype=np.intp)   # and their calendar months
         self._tags: dict[str, _TagState] = {}
         for name, (tag_id, th) in tags.items():
             enabled = th.enabled_tests
@@ -249,6 +286,22 @@ class LiveQc:
         return [(state.tag_id, int(w.ms[i]), int(worse[i])) for i in changed.tolist()]
 
     # -- evaluation -----------------------------------------------------------------------
+    def _months(self, ms: np.ndarray) -> np.ndarray:
+        """Calendar months (1–12) in the site's time zone of sorted times [epoch ms], from a
+        table of local month starts kept across batches (one look-up, not one per tag)."""
+        lo, hi = int(ms[0]), int(ms[-1])
+        bounds = self._month_ms
+        if not bounds.size or lo < bounds[0] or hi >= bounds[-1]:
+            first = pd.Timestamp(lo, unit="ms", tz="UTC").tz_convert(self.tz)
+            last = pd.Timestamp(hi, unit="ms", tz="UTC").tz_convert(self.tz)
+            starts = pd.date_range(pd.Timestamp(first.year, first.month, 1, tz=self.tz)
+                                   - pd.DateOffset(months=1),
+                                   pd.Timestamp(last.year, last.month, 1, tz=self.tz)
+                                   + pd.DateOffset(months=3), freq="MS")
+            self._month_ms = bounds = (starts.as_unit("ms").asi8).astype(np.int64)
+            self._month_no = np.asarray(starts.month, dtype=np.intp)
+        return self._month_no[np.searchsorted(bounds, ms, side="right") - 1]
+
     def evaluate(self, batch: Mapping[str, tuple[Sequence[int], Sequence[float],
                                                  Sequence[bool] | None]],
                  *, now_s: float | None = None,
@@ -291,9 +344,7 @@ class LiveQc:
             judged[name] = (ms, np.where(finite, x, np.nan), x_eff, flags)
         self._pairs(judged)
         for name, (ms, x, x_eff, flags) in judged.items():
-            tag_id = self._tags[name].tag_id
-            ev.rows.extend(zip([tag_id] * ms.size, (ms / 1000.0).tolist(), x.tolist(),
-                               flags.tolist(), strict=True))
+            ev._chunks.append((self._tags[name].tag_id, ms, x, flags))
             ev._append[name] = (ms, x_eff, flags)
             ev.newest_ms[name] = int(ms[-1])
         return ev
@@ -312,6 +363,9 @@ class LiveQc:
             elif test == "spike":
                 assert th.spike_suspect is not None and th.spike_fail is not None
                 per[test] = spike_test(tail_x, th.spike_suspect, th.spike_fail)
+            elif test == "climatology":
+                per[test] = climatology_test(t_s, tail_x, th.seasonal_ranges, tz=self.tz,
+                                             months=self._months(tail_ms))
             elif test == "rate_of_change":
                 assert th.rate_suspect_per_s is not None
                 per[test] = rate_of_change_test(t_s, tail_x, th.rate_suspect_per_s,
@@ -376,8 +430,7 @@ class LiveQc:
                                              tz=self.tz).values()), ms.size)
         flags[np.isnan(x_eff)] = MISSING
         flags[~ok] = np.where(finite[~ok], FAIL, MISSING)
-        ev.rows.extend(zip([state.tag_id] * ms.size, (ms / 1000.0).tolist(),
-                           np.where(finite, x, np.nan).tolist(), flags.tolist(), strict=True))
+        ev._chunks.append((state.tag_id, ms, np.where(finite, x, np.nan), flags))
 
     def _pairs(self, judged: dict[str, tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]]
                ) -> None:

@@ -12,7 +12,7 @@ wires the same methods to APScheduler for real time):
   complete, at most ``max_backfill_s`` back; ``until``: the newest time stamp of the live read,
   or ``now`` if later; the read comes first, so it is what tells the feed is back, and nothing
   the source recorded while it reconnected is missed). Backfill and live readings are QC'd
-  (:mod:`db.ingest.live_qc`) and stored as one batch (:func:`db.readings.store_batch`: raw
+  (:mod:`db.ingest.live_qc`) and stored as one batch (:func:`db.readings.store_arrays`: raw
   readings and rollups, atomic, idempotent, so overlaps are harmless), re-flags are applied, a
   CSV drop folder is committed, and the feed's health is written
   (:func:`db.feed_health.update_feed_health`): last success, readings per minute (live readings
@@ -73,7 +73,7 @@ from db.ingest.recommending import (
 from db.ingest.store import apply_reflags, recent_readings
 from db.ingest.upkeep import backup_sqlite
 from db.partitions import ensure_partitions
-from db.readings import store_batch
+from db.readings import store_arrays
 from db.retention import PruneReport, prune
 from db.site_sync import sync_site
 from db.types import ms_to_datetime, to_epoch_ms, to_utc
@@ -316,7 +316,7 @@ class IngestService:
                 if name not in self._warned:
                     self._warned.add(name)
                     _log.warning("readings of tag %r ignored: not in the site's catalogue", name)
-            stored = store_batch(self.engine, ev.rows) if ev.rows else 0
+            stored = store_arrays(self.engine, *ev.arrays()) if len(ev) else 0
             reflagged = apply_reflags(self.engine, ev.reflags) if ev.reflags else 0
             self.qc.commit(ev)
             return IngestResult(len(readings) + len(history), stored, reflagged,
