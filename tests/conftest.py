@@ -27,3 +27,13 @@ def pytest_runtest_makereport(item, call):
         report.outcome = "failed"
         reason = report.longrepr[-1] if isinstance(report.longrepr, tuple) else report.longrepr
         report.longrepr = f"skipped under CI, which is not allowed: {reason}"
+
+
+def pytest_collection_modifyitems(session, config, items):
+    """Run the browser tests last. Playwright's session-wide event loop stays running in the
+    main thread once it starts, and ``asyncio.run`` (the OPC UA server tests, the simulator's
+    command line) refuses to run under it."""
+    def uses_browser(item) -> bool:
+        return bool({"page", "browser", "context"} & set(getattr(item, "fixturenames", ())))
+
+    items[:] = [i for i in items if not uses_browser(i)] + [i for i in items if uses_browser(i)]
