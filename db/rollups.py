@@ -49,8 +49,8 @@ ROLLUP_COLUMNS = ("tag_id", "res_s", "bucket_ms", "n", "vsum", "vmin", "vmin_ms"
 def _first_true_per_group(mask: np.ndarray, group: np.ndarray, n_groups: int) -> np.ndarray:
     """Index of the first True of ``mask`` in each group (groups are contiguous)."""
     idx = np.flatnonzero(mask)
-    _, first = np.unique(group[idx], return_index=True)
-    out = idx[first]
+    g = group[idx]  # non-decreasing: the first of each run of equal group numbers
+    out = idx[np.concatenate(([True], g[1:] != g[:-1]))] if idx.size else idx
     assert out.size == n_groups
     return out
 

@@ -61,7 +61,6 @@ import pandas as pd
 from ops_logic.qc import (
     QcThresholds,
     climatology_test,
-    flat_line_test,
     gross_range_test,
     qc_aggregate,
     rate_of_change_test,
@@ -212,6 +211,48 @@ def _aggregate(parts: list[np.ndarray], n: int) -> np.ndarray:
     for p in parts[1:]:
         np.maximum(rank, _RANK_OF[p], out=rank)
     return _FLAG_OF[rank]
+
+
+def _flat_line_tail(t_s: np.ndarray, x: np.ndarray, tolerance: float, suspect_s: float,
+                    fail_s: float, n: int) -> np.ndarray:
+    """``flat_line_test(t_s, x, tolerance, suspect_s, fail_s)[-n:]`` (:mod:`ops_logic.qc`,
+    QARTOD flat line), computed for the last ``n`` readings only: the spread max − min of the
+    valid readings from each one's anchor (the last at or before t − T) to it, by range
+    queries on a sparse table of maxima and minima (exact), not rolling windows over the
+    whole series. Times strictly increasing [s]; NaN values are MISSING."""
+    finite = np.isfinite(x)
+    out = np.full(n, MISSING, dtype=np.uint8)
+    new = finite[x.size - n:]
+    m = int(new.sum())
+    if m == 0:
+        return out
+    tv, xv = t_s[finite], x[finite]
+    j = np.arange(tv.size - m, tv.size)
+    anchors = [np.searchsorted(tv, tv[j] - seconds, side="right") - 1
+               for seconds in (suspect_s, fail_s)]
+    lo = int(max(min(int(a.min()) for a in anchors), 0))
+    longest = int(max(int((j - np.maximum(a, 0)).max()) for a in anchors)) + 1
+    levels = max(longest.bit_length(), 1)
+    size = xv.size - lo
+    top = np.full((levels, size), -np.inf)
+    bottom = np.full((levels, size), np.inf)
+    top[0], bottom[0] = xv[lo:], xv[lo:]
+    for k in range(1, levels):
+        h = 1 << (k - 1)
+        np.maximum(top[k - 1, :size - h], top[k - 1, h:], out=top[k, :size - h])
+        np.minimum(bottom[k - 1, :size - h], bottom[k - 1, h:], out=bottom[k, :size - h])
+    valid = np.full(m, PASS, dtype=np.uint8)
+    for anchor, flag in zip(anchors, (SUSPECT, FAIL), strict=True):
+        a = np.maximum(anchor, 0) - lo
+        b = j - lo
+        k = np.frexp((b - a + 1).astype(np.float64))[1] - 1  # floor(log2(length))
+        c = b - (1 << k) + 1
+        spread = (np.maximum(top[k, a], top[k, c]) - np.minimum(bottom[k, a], bottom[k, c]))
+        valid[(anchor >= 0) & (spread < tolerance)] = flag
+        if flag == SUSPECT:
+            valid[anchor < 0] = NOT_EVALUATED
+    out[new] = valid
+    return out
 
 
 class LiveQc:
@@ -376,8 +417,8 @@ class LiveQc:
         if th.flat_tolerance is not None and self._might_be_flat(w, ms, x, th):
             all_ms = np.concatenate((w.ms, ms))
             all_x = np.concatenate((w.x, x))
-            parts.append(flat_line_test(all_ms / 1000.0, all_x, th.flat_tolerance,
-                                        th.flat_suspect_s, th.flat_fail_s)[-n:])
+            parts.append(_flat_line_tail(all_ms / 1000.0, all_x, th.flat_tolerance,
+                                         th.flat_suspect_s, th.flat_fail_s, n))
         if now_s is not None and th.max_age_s is not None and timed.any():
             timing = timing_gap_test(ms / 1000.0, now_s, th.max_age_s,
                                      max_future_s=th.max_future_s)
