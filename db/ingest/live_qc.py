@@ -455,10 +455,17 @@ class LiveQc:
             recent = all_ms[-1] - all_ms[-_FLAT_CHECK] < th.flat_suspect_s * 1000.0
             last = all_x[-_FLAT_CHECK:]
             return not (recent and last.max() - last.min() >= th.flat_tolerance)
-        view_x = np.lib.stride_tricks.sliding_window_view(all_x, _FLAT_CHECK)[-m:]
-        view_ms = np.lib.stride_tricks.sliding_window_view(all_ms, _FLAT_CHECK)[-m:]
-        spread = view_x.max(axis=1) - view_x.min(axis=1)
-        recent = (view_ms[:, -1] - view_ms[:, 0]) < th.flat_suspect_s * 1000.0
+        runs = all_x.size - _FLAT_CHECK + 1  # runs of _FLAT_CHECK readings: the last m
+        s0 = max(runs - m, 0)
+        m = runs - s0
+        top = all_x[s0:s0 + m].copy()
+        bottom = top.copy()
+        for d in range(1, _FLAT_CHECK):
+            np.maximum(top, all_x[s0 + d:s0 + d + m], out=top)
+            np.minimum(bottom, all_x[s0 + d:s0 + d + m], out=bottom)
+        spread = top - bottom
+        last = s0 + _FLAT_CHECK - 1
+        recent = (all_ms[last:last + m] - all_ms[s0:s0 + m]) < th.flat_suspect_s * 1000.0
         return bool(np.any(~recent | (spread < th.flat_tolerance)))
 
     def _late(self, state: _TagState, ms: np.ndarray, x: np.ndarray, ok: np.ndarray,

@@ -52,6 +52,7 @@ import threading
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from datetime import UTC, datetime, timedelta
+from operator import attrgetter
 from pathlib import Path
 from typing import Any, NamedTuple
 
@@ -163,6 +164,9 @@ class CycleContext:
 Evaluator = Callable[[datetime, CycleContext], Any]
 
 
+_VALUE, _SOURCE_OK = attrgetter("value"), attrgetter("source_ok")
+
+
 def _columns(readings: Sequence[FeedReading], history: Sequence[FeedReading]
              ) -> tuple[dict[str, tuple[np.ndarray, np.ndarray, np.ndarray]],
                         dict[str, np.ndarray]]:
@@ -178,8 +182,8 @@ def _columns(readings: Sequence[FeedReading], history: Sequence[FeedReading]
     first = dict(zip(ids, stamps, strict=True))
     ms_of = {k: to_epoch_ms(ts) for k, ts in first.items()}
     ms = np.fromiter(map(ms_of.__getitem__, ids), np.int64, len(ids))
-    values = np.asarray([r.value for r in both], dtype=np.float64)
-    ok = np.asarray([r.source_ok for r in both], dtype=bool)
+    values = np.fromiter(map(_VALUE, both), np.float64, len(both))
+    ok = np.fromiter(map(_SOURCE_OK, both), bool, len(both))
     timed = np.zeros(len(both), dtype=bool)
     timed[:len(readings)] = True
     codes, names = pd.factorize(np.asarray(tags, dtype=object))
