@@ -27,6 +27,8 @@ SCREENS = Path(__file__).resolve().parents[1] / "artifacts" / "screens"
 CHROMIUM = shutil.which("chromium") or "/usr/bin/chromium"
 SEED_END = datetime(2026, 7, 15, 12, 0, tzinfo=UTC)
 SEED_HOURS = 6
+NOW = SEED_END + timedelta(seconds=20)
+"""The clock the page tests read the seeded data at."""
 
 
 def _free_port() -> int:
@@ -106,6 +108,56 @@ def browser_type_launch_args(browser_type_launch_args):
 def screens() -> Path:
     SCREENS.mkdir(parents=True, exist_ok=True)
     return SCREENS
+
+
+@pytest.fixture
+def engine_copy(seeded_engine, tmp_path):
+    """A private copy of the seeded database (sqlite3 backup: WAL content included)."""
+    import sqlite3
+
+    from db.engine import make_engine
+
+    path = tmp_path / "copy.sqlite"
+    src, dst = sqlite3.connect(seeded_engine.url.database), sqlite3.connect(path)
+    with dst:
+        src.backup(dst)
+    src.close()
+    dst.close()
+    engine = make_engine(sqlite_path=path)
+    yield engine
+    engine.dispose()
+
+
+@pytest.fixture
+def app_ctx(monkeypatch, demo_site, engine_copy):
+    """The dashboard context on the copy, and the overview's clock at NOW (both restored
+    afterwards)."""
+    from dashboard import context
+    from dashboard.context import AppContext
+    from dashboard.services import overview as overview_service
+    from ops_logic.ladder import Ladder
+
+    ctx = AppContext(demo_site, engine_copy,
+                     {f.id: Ladder.from_site(demo_site, f.id) for f in demo_site.fishways})
+    monkeypatch.setattr(context, "_current", ctx)
+    monkeypatch.setattr(overview_service, "now", lambda: NOW)
+    return ctx
+
+
+@pytest.fixture(scope="module")
+def page_module(seeded_engine, demo_site):
+    """``page_module(name)``: the page module ``pages.<name>`` as the app loads it (create_app
+    imports the pages), built once per test module; the dashboard context is restored."""
+    import sys
+
+    from dashboard import context
+    from dashboard.app import create_app
+
+    saved = context._current
+    create_app(demo_site, seeded_engine, secret_key="test")
+    if saved is not None:
+        context.install(saved)
+    return lambda name: sys.modules[f"pages.{name}"]
 
 
 @pytest.fixture

@@ -2,8 +2,6 @@
 reading per tag and its age, QARTOD flag counts over the last hour and day."""
 from __future__ import annotations
 
-import sqlite3
-import sys
 from contextlib import contextmanager
 from datetime import UTC, datetime, timedelta
 
@@ -11,52 +9,21 @@ import flask
 import pytest
 from ioos_qc.qartod import QartodFlags
 
-from dashboard import auth, context
-from dashboard.context import AppContext
+from dashboard import auth
 from dashboard.services import health
-from dashboard.services import overview as overview_service
 from db.catalog import tag_id
 from db.dashboard_queries import QARTOD_FLAG_NAMES
-from db.engine import make_engine
 from db.feed_health import update_feed_health
 from db.readings import readings_frame, store_batch
-from ops_logic.ladder import Ladder
 
 SEED_END = datetime(2026, 7, 15, 12, 0, tzinfo=UTC)  # as in tests/dashboard/conftest.py
 NOW = SEED_END + timedelta(seconds=20)
 FT = 0.3048  # international foot, exactly (NIST SP 811, 2008, appendix B; from memory)
 
 
-@pytest.fixture
-def engine_copy(seeded_engine, tmp_path):
-    path = tmp_path / "copy.sqlite"
-    src, dst = sqlite3.connect(seeded_engine.url.database), sqlite3.connect(path)
-    with dst:
-        src.backup(dst)
-    src.close()
-    dst.close()
-    engine = make_engine(sqlite_path=path)
-    yield engine
-    engine.dispose()
-
-
-@pytest.fixture
-def app_ctx(monkeypatch, demo_site, engine_copy):
-    ctx = AppContext(demo_site, engine_copy,
-                     {f.id: Ladder.from_site(demo_site, f.id) for f in demo_site.fishways})
-    monkeypatch.setattr(context, "_current", ctx)
-    monkeypatch.setattr(overview_service, "now", lambda: NOW)
-    return ctx
-
-
 @pytest.fixture(scope="module")
-def health_page(seeded_engine, demo_site):
-    from dashboard.app import create_app
-
-    saved = context._current
-    create_app(demo_site, seeded_engine, secret_key="test")
-    context._current = saved
-    return sys.modules["pages.health"]
+def health_page(page_module):
+    return page_module("health")
 
 
 @contextmanager

@@ -10,7 +10,6 @@ from __future__ import annotations
 import doctest
 import importlib
 import sqlite3
-import sys
 from contextlib import contextmanager
 from datetime import UTC, datetime, timedelta
 
@@ -21,8 +20,7 @@ import pytest
 from hypothesis import assume, given
 from hypothesis import strategies as st
 
-from dashboard import auth, context
-from dashboard.context import AppContext
+from dashboard import auth
 from dashboard.figures.overview import bullet_geometry, panel_values, wall_values
 from dashboard.services import overview as service
 from db.alarms import record_alarm_event
@@ -43,39 +41,9 @@ CFS = FT**3  # one cubic foot per second in m³/s, exactly
 
 
 # -- fixtures ---------------------------------------------------------------------------------
-@pytest.fixture
-def engine_copy(seeded_engine, tmp_path):
-    """A private copy of the seeded database (sqlite3 backup: WAL content included)."""
-    path = tmp_path / "copy.sqlite"
-    src, dst = sqlite3.connect(seeded_engine.url.database), sqlite3.connect(path)
-    with dst:
-        src.backup(dst)
-    src.close()
-    dst.close()
-    engine = make_engine(sqlite_path=path)
-    yield engine
-    engine.dispose()
-
-
-@pytest.fixture
-def app_ctx(monkeypatch, demo_site, engine_copy):
-    """The dashboard context on the copy, and the clock at NOW (both restored afterwards)."""
-    ctx = AppContext(demo_site, engine_copy,
-                     {f.id: Ladder.from_site(demo_site, f.id) for f in demo_site.fishways})
-    monkeypatch.setattr(context, "_current", ctx)
-    monkeypatch.setattr(service, "now", lambda: NOW)
-    return ctx
-
-
 @pytest.fixture(scope="module")
-def overview_page(seeded_engine, demo_site):
-    """The overview page module as the app loads it (create_app imports the pages)."""
-    from dashboard.app import create_app
-
-    saved = context._current
-    create_app(demo_site, seeded_engine, secret_key="test")
-    context.install(saved) if saved is not None else None
-    return sys.modules["pages.overview"]
+def overview_page(page_module):
+    return page_module("overview")
 
 
 @pytest.fixture

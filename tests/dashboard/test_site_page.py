@@ -3,8 +3,6 @@ display units, supervisors' overrides of targets, alarm limits and mode (validat
 site file, stored with old and new value and author, logged), and accounts."""
 from __future__ import annotations
 
-import sqlite3
-import sys
 import tomllib
 from contextlib import contextmanager
 from datetime import UTC, datetime, timedelta
@@ -12,14 +10,11 @@ from datetime import UTC, datetime, timedelta
 import flask
 import pytest
 
-from dashboard import auth, context
-from dashboard.context import AppContext
+from dashboard import auth
 from dashboard.services import overview as overview_service
 from dashboard.services import site as service
 from db.dashboard_queries import setting_changes_frame, users_frame
-from db.engine import make_engine
 from db.history import operator_log_frame
-from ops_logic.ladder import Ladder
 from ops_logic.site import demo_site_path
 
 SEED_END = datetime(2026, 7, 15, 12, 0, tzinfo=UTC)  # as in tests/dashboard/conftest.py
@@ -30,36 +25,9 @@ TOML = tomllib.loads(demo_site_path().read_text(encoding="utf-8"))
 EAST = next(f for f in TOML["fishways"] if f["id"] == "east")  # the site file, read directly
 
 
-@pytest.fixture
-def engine_copy(seeded_engine, tmp_path):
-    path = tmp_path / "copy.sqlite"
-    src, dst = sqlite3.connect(seeded_engine.url.database), sqlite3.connect(path)
-    with dst:
-        src.backup(dst)
-    src.close()
-    dst.close()
-    engine = make_engine(sqlite_path=path)
-    yield engine
-    engine.dispose()
-
-
-@pytest.fixture
-def app_ctx(monkeypatch, demo_site, engine_copy):
-    ctx = AppContext(demo_site, engine_copy,
-                     {f.id: Ladder.from_site(demo_site, f.id) for f in demo_site.fishways})
-    monkeypatch.setattr(context, "_current", ctx)
-    monkeypatch.setattr(overview_service, "now", lambda: NOW)
-    return ctx
-
-
 @pytest.fixture(scope="module")
-def site_page(seeded_engine, demo_site):
-    from dashboard.app import create_app
-
-    saved = context._current
-    create_app(demo_site, seeded_engine, secret_key="test")
-    context._current = saved
-    return sys.modules["pages.site"]
+def site_page(page_module):
+    return page_module("site")
 
 
 @contextmanager
