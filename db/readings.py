@@ -18,12 +18,17 @@ readings land in place (the table is keyed by (tag_id, ts)); the return value is
 number of readings that were new. Rollups (:mod:`db.rollups`) are updated from the new
 readings only, so duplicates never count twice.
 
+``store_arrays(engine, tag_id, ts_ms, value, flag) -> int`` is the same for a batch given
+as columns (integer tag ids and epoch milliseconds, float values with NaN for missing,
+integer flags), as the ingest service has it: no per-row Python tuples are made and parsed.
+
 Engines: on SQLite the batch runs on the raw DBAPI connection inside ``BEGIN
 IMMEDIATE`` (the write lock is taken first, so nothing changes between the insert and
 the check for keys already stored). The batch is inserted optimistically with ``ON
 CONFLICT DO NOTHING``; only when fewer rows than sent were new is that undone (a
 savepoint) and the new rows found by a per-tag key look-up and inserted, so a fresh
-batch costs no look-ups and a re-sent one about twice its insert. On PostgreSQL one
+batch costs no look-ups and a re-sent one about twice its insert. Readings and rollup
+deltas are bound up to :data:`ROWS_PER_STATEMENT` rows per statement (multi-row VALUES). On PostgreSQL one
 ``INSERT … SELECT FROM unnest(…) ON CONFLICT
 DO NOTHING RETURNING`` stores the batch and returns exactly the new rows, which keeps
 concurrent writers correct too.
