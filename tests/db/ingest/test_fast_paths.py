@@ -60,7 +60,8 @@ def test_store_arrays_stores_what_store_batch_stores(tmp_path):
     for i in range(3):
         v = rng.normal(70.0, 0.1, ts.size)
         f = np.where(rng.random(ts.size) < 0.1, 3, 1)
-        rows += [(tags1[i], int(t) / 1000.0, float(a), int(b)) for t, a, b in zip(ts, v, f, strict=True)]
+        rows += [(tags1[i], int(t) / 1000.0, float(a), int(b))
+                 for t, a, b in zip(ts, v, f, strict=True)]
         for c, arr in zip(cols, (np.full(ts.size, tags2[i]), ts, v, f), strict=True):
             c.append(arr)
     t_col, ts_col, v_col, f_col = (np.concatenate(c) for c in cols)
