@@ -160,6 +160,8 @@ class _TagState:
     window: TrailingWindow
     tests: tuple[str, ...]
     has_spike: bool
+    checked: dict[str, tuple] = field(default_factory=dict)
+    """Thresholds of the small tests, checked once by the test itself (:func:`_checked`)."""
 
 
 @dataclass
@@ -211,6 +213,81 @@ def _aggregate(parts: list[np.ndarray], n: int) -> np.ndarray:
     for p in parts[1:]:
         np.maximum(rank, _RANK_OF[p], out=rank)
     return _FLAG_OF[rank]
+
+
+_MAX_EPOCH_S = 1e11
+"""Largest epoch time [s] :func:`ops_logic.qc.epoch_seconds` takes (about year 5100)."""
+
+
+def _checked(th: QcThresholds) -> dict[str, tuple]:
+    """Thresholds of gross range, rate of change and timing/gap that their test accepts (each
+    test is called once on a tiny series to check them): the parameters of the same test
+    without its per-call checks (:func:`_gross_range`, :func:`_rate_of_change`,
+    :func:`_timing`). A test whose thresholds it refuses is left out (then it is called as
+    usual, and raises as usual)."""
+    out: dict[str, tuple] = {}
+    try:
+        gross_range_test(np.zeros(1), th.fail_span, th.suspect_span)
+        fail = (float(th.fail_span[0]), float(th.fail_span[1]))
+        suspect = (None if th.suspect_span is None
+                   else (float(th.suspect_span[0]), float(th.suspect_span[1])))
+        out["gross_range"] = (fail, suspect)
+    except (TypeError, ValueError):
+        pass
+    if th.rate_suspect_per_s is not None:
+        try:
+            rate_of_change_test(np.zeros(1), np.zeros(1), th.rate_suspect_per_s,
+                                th.rate_fail_per_s)
+            out["rate_of_change"] = (float(th.rate_suspect_per_s),
+                                     np.inf if th.rate_fail_per_s is None
+                                     else float(th.rate_fail_per_s))
+        except (TypeError, ValueError):
+            pass
+    if th.max_age_s is not None:
+        try:
+            timing_gap_test(np.zeros(1), 0.0, th.max_age_s, max_future_s=th.max_future_s)
+            out["timing_gap"] = (float(th.max_age_s), float(th.max_future_s))
+        except (TypeError, ValueError):
+            pass
+    return out
+
+
+def _gross_range(x: np.ndarray, fail: tuple[float, float],
+                 suspect: tuple[float, float] | None) -> np.ndarray:
+    """:func:`ops_logic.qc.gross_range_test` with spans already checked (QARTOD gross range)."""
+    flags = np.full(x.shape, PASS, dtype=np.uint8)
+    flags[np.isnan(x)] = MISSING
+    if suspect is not None:
+        flags[(x < suspect[0]) | (x > suspect[1])] = SUSPECT
+    flags[(x < fail[0]) | (x > fail[1])] = FAIL
+    return flags
+
+
+def _rate_of_change(t_s: np.ndarray, x: np.ndarray, suspect: float, fail: float
+                    ) -> np.ndarray:
+    """:func:`ops_logic.qc.rate_of_change_test` with thresholds checked and times known
+    finite and strictly increasing [s] (QARTOD rate of change)."""
+    finite = np.isfinite(x)
+    flags = np.full(x.shape, PASS, dtype=np.uint8)
+    if x.size > 1:
+        with np.errstate(invalid="ignore"):  # non-finite readings are handled below
+            rate = np.abs(np.diff(x)) / np.diff(t_s)
+        later = flags[1:]
+        later[rate > suspect] = SUSPECT
+        later[rate > fail] = FAIL
+        later[~finite[:-1]] = NOT_EVALUATED
+    flags[:1] = NOT_EVALUATED
+    flags[~finite] = MISSING
+    return flags
+
+
+def _timing(t_s: np.ndarray, now_s: float, max_age_s: float, max_future_s: float
+            ) -> np.ndarray:
+    """:func:`ops_logic.qc.timing_gap_test` with limits and ``now`` checked and finite times
+    [s] (QARTOD timing/gap)."""
+    flags = np.full(t_s.shape, PASS, dtype=np.uint8)
+    flags[(now_s - t_s > max_age_s) | (t_s - now_s > max_future_s)] = FAIL
+    return flags
 
 
 def _flat_line_tail(t_s: np.ndarray, x: np.ndarray, tolerance: float, suspect_s: float,
@@ -283,13 +360,14 @@ class LiveQc:
         self.pair_tolerance_ms = dict(pair_tolerance_ms or {})
         self._month_ms = np.empty(0, dtype=np.int64)  # local month starts [epoch ms]
         self._month_no = np.empty(0, dtype=np.intp)   # and their calendar months
+        self._now_seen: tuple[float, bool] | None = None
         self._tags: dict[str, _TagState] = {}
         for name, (tag_id, th) in tags.items():
             enabled = th.enabled_tests
             span = max(th.flat_fail_s if "flat_line" in enabled else 0.0, th.max_age_s or 0.0)
             tests = tuple(n for n in enabled if n not in ("flat_line", "timing_gap"))
             self._tags[name] = _TagState(int(tag_id), th, TrailingWindow(span), tests,
-                                         "spike" in enabled)
+                                         "spike" in enabled, _checked(th))
 
     @property
     def names(self) -> list[str]:
@@ -397,10 +475,16 @@ class LiveQc:
         tail_ms = np.concatenate((w.ms[len(w) - k:], ms))
         tail_x = np.concatenate((w.x[len(w) - k:], x))
         t_s = tail_ms / 1000.0
+        checked = state.checked
+        # times: sorted, unique, finite; the one check of epoch_seconds left is their range
+        plain_times = t_s[0] >= -_MAX_EPOCH_S and t_s[-1] <= _MAX_EPOCH_S
         per = {}
         for test in state.tests:  # the tests run_qc_tests would run, called directly
             if test == "gross_range":
-                per[test] = gross_range_test(tail_x, th.fail_span, th.suspect_span)
+                per[test] = (_gross_range(tail_x, *checked[test]) if test in checked
+                             else gross_range_test(tail_x, th.fail_span, th.suspect_span))
+            elif test == "rate_of_change" and plain_times and test in checked:
+                per[test] = _rate_of_change(t_s, tail_x, *checked[test])
             elif test == "spike":
                 assert th.spike_suspect is not None and th.spike_fail is not None
                 per[test] = spike_test(tail_x, th.spike_suspect, th.spike_fail)
@@ -420,8 +504,12 @@ class LiveQc:
             parts.append(_flat_line_tail(all_ms / 1000.0, all_x, th.flat_tolerance,
                                          th.flat_suspect_s, th.flat_fail_s, n))
         if now_s is not None and th.max_age_s is not None and timed.any():
-            timing = timing_gap_test(ms / 1000.0, now_s, th.max_age_s,
-                                     max_future_s=th.max_future_s)
+            if (plain_times and "timing_gap" in checked
+                    and self._now_checked(now_s) is not None):
+                timing = _timing(ms / 1000.0, float(now_s), *checked["timing_gap"])
+            else:
+                timing = timing_gap_test(ms / 1000.0, now_s, th.max_age_s,
+                                         max_future_s=th.max_future_s)
             timing[~timed] = NOT_EVALUATED
             parts.append(timing)
         flags = _aggregate(parts, n)
@@ -433,6 +521,15 @@ class LiveQc:
                 ev.reflags.append((state.tag_id, int(w.ms[-1]), new))
                 ev._last_flag[name] = new
         return flags
+
+    def _now_checked(self, now_s: float) -> float | None:
+        """``now_s`` if :func:`ops_logic.qc.timing_gap_test` takes it as a plain finite epoch
+        time [s] (checked once per value), else None."""
+        if self._now_seen is None or self._now_seen[0] != now_s:
+            ok = (isinstance(now_s, int | float) and not isinstance(now_s, bool)
+                  and math.isfinite(now_s) and abs(now_s) <= _MAX_EPOCH_S)
+            self._now_seen = (now_s, ok)
+        return now_s if self._now_seen[1] else None
 
     @staticmethod
     def _might_be_flat(w: TrailingWindow, ms: np.ndarray, x: np.ndarray,
