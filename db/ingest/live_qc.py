@@ -442,10 +442,13 @@ class LiveQc:
                   else np.asarray(timed[name], dtype=bool))
             if ms.size == 0:
                 continue
-            order = np.argsort(ms, kind="stable")
-            ms, x, ok, tm = ms[order], x[order], ok[order], tm[order]
-            first = np.concatenate(([True], ms[1:] != ms[:-1]))
-            ms, x, ok, tm = ms[first], x[first], ok[first], tm[first]
+            if ms.size > 1 and not (ms[1:] > ms[:-1]).all():  # else: sorted and unique
+                order = np.argsort(ms, kind="stable")
+                ms, x, ok, tm = ms[order], x[order], ok[order], tm[order]
+                first = np.concatenate(([True], ms[1:] != ms[:-1]))
+                ms, x, ok, tm = ms[first], x[first], ok[first], tm[first]
+            elif ms is ms_in:
+                ms = ms.copy()  # kept in the evaluation: not the caller's array
             last = state.window.last_ms
             if last is not None and ms[0] <= last:
                 old = ms <= last
