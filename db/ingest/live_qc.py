@@ -220,9 +220,9 @@ _MAX_EPOCH_S = 1e11
 
 
 def _checked(th: QcThresholds) -> dict[str, tuple]:
-    """Thresholds of gross range, rate of change and timing/gap that their test accepts (each
-    test is called once on a tiny series to check them): the parameters of the same test
-    without its per-call checks (:func:`_gross_range`, :func:`_rate_of_change`,
+    """Thresholds of gross range, spike, rate of change and timing/gap that their test accepts
+    (each test is called once on a tiny series to check them): the parameters of the same test
+    without its per-call checks (:func:`_gross_range`, :func:`_spike`, :func:`_rate_of_change`,
     :func:`_timing`). A test whose thresholds it refuses is left out (then it is called as
     usual, and raises as usual)."""
     out: dict[str, tuple] = {}
@@ -234,6 +234,12 @@ def _checked(th: QcThresholds) -> dict[str, tuple]:
         out["gross_range"] = (fail, suspect)
     except (TypeError, ValueError):
         pass
+    if th.spike_suspect is not None and th.spike_fail is not None:
+        try:
+            spike_test(np.zeros(1), th.spike_suspect, th.spike_fail)
+            out["spike"] = (float(th.spike_suspect), float(th.spike_fail))
+        except (TypeError, ValueError):
+            pass
     if th.rate_suspect_per_s is not None:
         try:
             rate_of_change_test(np.zeros(1), np.zeros(1), th.rate_suspect_per_s,
@@ -260,6 +266,22 @@ def _gross_range(x: np.ndarray, fail: tuple[float, float],
     if suspect is not None:
         flags[(x < suspect[0]) | (x > suspect[1])] = SUSPECT
     flags[(x < fail[0]) | (x > fail[1])] = FAIL
+    return flags
+
+
+def _spike(x: np.ndarray, suspect: float, fail: float) -> np.ndarray:
+    """:func:`ops_logic.qc.spike_test` with thresholds already checked (QARTOD spike)."""
+    finite = np.isfinite(x)
+    flags = np.full(x.shape, PASS, dtype=np.uint8)
+    if x.size > 2:
+        with np.errstate(invalid="ignore"):  # non-finite readings are handled below
+            diff = np.abs(x[1:-1] - (x[:-2] + x[2:]) / 2)
+        inner = flags[1:-1]
+        inner[diff > suspect] = SUSPECT
+        inner[diff > fail] = FAIL
+        inner[~(finite[:-2] & finite[2:])] = NOT_EVALUATED
+    flags[[0, -1] if x.size else []] = NOT_EVALUATED
+    flags[~finite] = MISSING
     return flags
 
 
@@ -490,7 +512,8 @@ class LiveQc:
                 per[test] = _rate_of_change(t_s, tail_x, *checked[test])
             elif test == "spike":
                 assert th.spike_suspect is not None and th.spike_fail is not None
-                per[test] = spike_test(tail_x, th.spike_suspect, th.spike_fail)
+                per[test] = (_spike(tail_x, *checked[test]) if test in checked
+                             else spike_test(tail_x, th.spike_suspect, th.spike_fail))
             elif test == "climatology":
                 per[test] = climatology_test(t_s, tail_x, th.seasonal_ranges, tz=self.tz,
                                              months=self._months(tail_ms))
