@@ -25,7 +25,6 @@ from dashboard.figures.overview import (
     summary_values,
 )
 from dashboard.services import overview as service
-from ops_logic.advisory import ADVISORY_CAUTION
 from ops_logic.site import Fishway
 
 dash.register_page(__name__, path="/", name="Overview", title="Overview")
@@ -118,7 +117,7 @@ def layout(**_: Any) -> Any:
             _item("site.problems", "div", ""),
         ]),
         html.Div(className="ov-grid", children=[_panel(f) for f in site.fishways]),
-        html.P(ADVISORY_CAUTION, className="ov-caution"),
+        # the advisory caution is the shell's footer, right below the panels
     ])
 
 
