@@ -15,9 +15,9 @@ from dash import Input, Output, State, callback, ctx, dcc, html, no_update
 
 from dashboard import auth
 from dashboard.context import current
+from dashboard.controls import chosen_fishway, fishway_head, picker_inputs, refresh_timer
 from dashboard.figures.profile import figure_patch, headline, profile_figure
 from dashboard.services.profile import (
-    fishway_options,
     live_state,
     local_time_text,
     now_utc,
@@ -47,15 +47,9 @@ def layout(fishway: str | None = None, **_: Any) -> Any:
     if denied is not None:
         return denied
     app = current()
-    ids = [f.id for f in app.site.fishways]
-    chosen = fishway if fishway in ids else ids[0]
     return html.Div(className="profile-page", children=[
-        html.Div(className="page-head", children=[
-            html.H1("Fishway profile"),
-            dcc.Dropdown(id=PROFILE_FISHWAY, options=fishway_options(app), value=chosen,
-                         clearable=False, className="fishway-select"),
-            html.Div(id=PROFILE_STATUS, className="status-line"),
-        ]),
+        fishway_head(app, "Fishway profile", picker_id=PROFILE_FISHWAY,
+                     status_id=PROFILE_STATUS, chosen=chosen_fishway(app, fishway)),
         html.Div(id=PROFILE_HEADLINE, className="bullets"),
         html.Div(className="profile-body", children=[
             dcc.Graph(id=PROFILE_GRAPH, className="profile-graph",
@@ -64,7 +58,7 @@ def layout(fishway: str | None = None, **_: Any) -> Any:
                        children=html.P(_HINT)),
         ]),
         dcc.Store(id=PROFILE_SELECTED), dcc.Store(id=PROFILE_DRAWN),
-        dcc.Interval(id=PROFILE_REFRESH, interval=REFRESH_MS),
+        refresh_timer(PROFILE_REFRESH, REFRESH_MS),
     ])
 
 
@@ -81,7 +75,7 @@ def _status(state: Any, why: str | None) -> Any:
 
 @callback(Output(PROFILE_GRAPH, "figure"), Output(PROFILE_STATUS, "children"),
           Output(PROFILE_HEADLINE, "children"), Output(PROFILE_DRAWN, "data"),
-          Input(PROFILE_FISHWAY, "value"), Input(PROFILE_REFRESH, "n_intervals"),
+          *picker_inputs(PROFILE_FISHWAY, PROFILE_REFRESH),
           State(PROFILE_SELECTED, "data"), State(PROFILE_DRAWN, "data"))
 def render(fishway: str, _n: int | None, selected: dict | None,
            drawn: str | None = None) -> tuple[Any, Any, Any, Any]:

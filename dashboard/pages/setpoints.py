@@ -15,8 +15,9 @@ from dash import ALL, Input, Output, State, callback, dcc, html
 
 from dashboard import auth
 from dashboard.context import current
+from dashboard.controls import chosen_fishway, fishway_head, picker_inputs, refresh_timer
 from dashboard.figures.profile import profile_figure
-from dashboard.services.profile import fishway_options, local_time_text, now_utc
+from dashboard.services.profile import local_time_text, now_utc
 from dashboard.services.setpoints import (
     CriterionRow,
     SetpointView,
@@ -63,15 +64,10 @@ def layout(fishway: str | None = None, **_: Any) -> Any:
     if denied is not None:
         return denied
     app = current()
-    ids = [f.id for f in app.site.fishways]
-    chosen = fishway if fishway in ids else ids[0]
+    chosen = chosen_fishway(app, fishway)
     return html.Div(className="setpoints-page", children=[
-        html.Div(className="page-head", children=[
-            html.H1("Setpoints"),
-            dcc.Dropdown(id=SETPOINTS_FISHWAY, options=fishway_options(app), value=chosen,
-                         clearable=False, className="fishway-select"),
-            html.Div(id=SETPOINTS_STATUS, className="status-line"),
-        ]),
+        fishway_head(app, "Setpoints", picker_id=SETPOINTS_FISHWAY,
+                     status_id=SETPOINTS_STATUS, chosen=chosen),
         html.Div(className="setpoints-top", children=[
             html.Section(className="panel", children=[
                 html.H2("Settings: current and recommended"),
@@ -101,7 +97,7 @@ def layout(fishway: str | None = None, **_: Any) -> Any:
             dcc.Graph(id=SETPOINTS_WHATIF_GRAPH, config={"displaylogo": False},
                       style={"display": "none"}),
         ]),
-        dcc.Interval(id=SETPOINTS_REFRESH, interval=REFRESH_MS),
+        refresh_timer(SETPOINTS_REFRESH, REFRESH_MS),
     ])
 
 
@@ -211,7 +207,7 @@ def _binding(view: SetpointView) -> Any:
           Output(SETPOINTS_BINDING, "children"), Output(SETPOINTS_CRITERIA, "children"),
           Output(SETPOINTS_LOG_LINK, "href"), Output(SETPOINTS_LOG_LINK, "children"),
           Output(SETPOINTS_TABLE_LINK, "href"),
-          Input(SETPOINTS_FISHWAY, "value"), Input(SETPOINTS_REFRESH, "n_intervals"))
+          *picker_inputs(SETPOINTS_FISHWAY, SETPOINTS_REFRESH))
 def render(fishway: str, _n: int | None) -> tuple[Any, ...]:
     """The settings, binding constraint, predicted criteria and the log link."""
     app = current()
