@@ -36,7 +36,7 @@ from ops_logic.site import (
     WeirBaffle,
     WeirOrificeBaffle,
 )
-from ops_logic.units import UnitSystem, format_quantity
+from ops_logic.units import UnitSystem, level_text
 
 if TYPE_CHECKING:
     from ops_logic.profile import Profile
@@ -253,10 +253,9 @@ class Ladder:
         return cls(site.fishway(fishway_id), units=site.site.units)
 
     def length_text(self, value_m: float) -> str:
-        """A level or length for a message: display units, with SI beside US values."""
-        if self.units == "si":
-            return f"{value_m:.3f} m"
-        return f"{format_quantity(value_m, 'length', 'us')} ({value_m:.3f} m)"
+        """A level or length for a message: display units, with SI beside US values
+        (:func:`ops_logic.units.level_text`)."""
+        return level_text(value_m, self.units)
 
     def solve(self, forebay: float, tailwater: float, settings: Mapping[str, float] | None = None,
               *, temperature_c: float = 10.0, warm: Profile | None = None) -> Profile:

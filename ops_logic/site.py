@@ -37,7 +37,7 @@ from pydantic import (
 )
 
 from ops_logic.alarms.config import AlarmSettings
-from ops_logic.units import UnitSystem, to_si
+from ops_logic.units import UnitSystem, level_text, to_si
 
 __all__ = [
     "Band",
@@ -526,12 +526,6 @@ def _control_level(b: Any, *, highest: bool = False) -> float:
     return min(o.invert for o in b.orifices)
 
 
-def _level(value_m: float, system: UnitSystem) -> str:
-    if system == "si":
-        return f"{value_m:.3f} m"
-    return f"{value_m / 0.3048:.2f} ft ({value_m:.3f} m)"
-
-
 def _check_fishway(f: Fishway, system: UnitSystem = "si") -> None:
     fb_hi = f.forebay_range[1]
     if f.tailwater_range[1] >= fb_hi:
@@ -556,9 +550,9 @@ def _check_fishway(f: Fishway, system: UnitSystem = "si") -> None:
         above = upstream[i]
         level_above = _control_level(above, highest=True)
         if _control_level(b) > level_above + 1e-9:
-            _fail(f"baffles[{i}]", f"control at {_level(_control_level(b), system)} lies above "
-                  f"the one upstream of it ({_level(level_above, system)}): list baffles in "
-                  "order from the exit downstream")
+            _fail(f"baffles[{i}]", f"control at {level_text(_control_level(b), system)} lies "
+                  f"above the one upstream of it ({level_text(level_above, system)}): list "
+                  "baffles in order from the exit downstream")
         floor_above = above.pool.floor
         if isinstance(b, WeirBaffle | WeirOrificeBaffle) and b.crest <= floor_above:
             _fail(f"baffles[{i}].crest", "must lie above the floor of the pool upstream of it")

@@ -29,6 +29,7 @@ __all__ = [
     "display_unit",
     "format_quantity",
     "from_si",
+    "level_text",
     "to_si",
 ]
 
@@ -127,3 +128,29 @@ def display_unit(kind: str, system: UnitSystem) -> str:
 def format_quantity(value_si: float, kind: str, system: UnitSystem, digits: int = 2) -> str:
     """Format an SI value in ``system``'s display unit, e.g. ``'1.00 ft'``."""
     return f"{from_si(value_si, kind, system):.{digits}f} {display_unit(kind, system)}"
+
+
+def level_text(value_m: float, system: UnitSystem) -> str:
+    """A level or length [m] as messages give it: the display unit of ``system``, with the SI
+    value beside a US one.
+
+    ``"x.xx ft (y.yyy m)"`` with x = value_m / 0.3048 (the conversion of :func:`from_si`, so a
+    level read from a US site file shows the feet it was written in), ``"y.yyy m"`` in SI.
+
+    Parameters
+    ----------
+    value_m : float
+        Level (an elevation) or length [m].
+    system : str
+        ``"us"`` or ``"si"``; another value raises ``ValueError``.
+
+    >>> level_text(to_si(254.0, "length", "us"), "us")
+    '254.00 ft (77.419 m)'
+    >>> level_text(77.4192, "si")
+    '77.419 m'
+    """
+    if system == "si":
+        return f"{value_m:.3f} m"
+    if system != "us":
+        raise ValueError(f"unknown unit system {system!r}: use 'us' or 'si'")
+    return f"{format_quantity(value_m, 'length', 'us')} ({value_m:.3f} m)"
