@@ -207,9 +207,11 @@ def _demo(args: argparse.Namespace) -> int:
         plant = Plant(site, start=start, seed=args.seed, scenario=demo_scenario(start, site))
         feeds = build_feeds(site, simulated_factory=simulated_factory(start, plant=plant))
         from db.alarm.evaluator import alarm_evaluator
+        from db.status import status_evaluator
 
         service = IngestService(site, engine, feeds, tag_ids=tag_ids,
-                                evaluators=(alarm_evaluator(engine, site),))
+                                evaluators=(alarm_evaluator(engine, site),
+                                            status_evaluator(site, engine)))
         print(f"fishway demo: {site.site.name} (an invented site), database "
               f"{engine.url.render_as_string()}", file=sys.stderr, flush=True)
         by_period: dict[float, list] = {}

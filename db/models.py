@@ -17,7 +17,8 @@ record of it) and ``alarm_events`` (append-only history), ``alarm_engine_state``
 site: the rest of the engine's working state and the version that serialises its writers,
 :mod:`db.alarm.store`), ``operator_log`` (append-only; mistakes are fixed by a
 ``correction`` entry that refers to the entry it corrects), ``users`` and
-``feed_health``.
+``feed_health``. ``fishway_status`` and ``fishway_status_metrics``: the newest overview
+status of each fishway (replaced every ingest cycle, :mod:`db.status`).
 
 Readings layout
 ---------------
@@ -45,9 +46,11 @@ __all__ = [
     "ALARM_EVENT_KINDS",
     "ALARM_PRIORITIES",
     "ALARM_STATES",
+    "METRIC_STATUSES",
     "NAMING_CONVENTION",
     "OPERATOR_LOG_KINDS",
     "QARTOD_FLAGS",
+    "STATUS_STATES",
     "USER_ROLES",
     "ActuatorSetting",
     "Alarm",
@@ -56,11 +59,13 @@ __all__ = [
     "Base",
     "FeedHealth",
     "Fishway",
+    "FishwayStatusRow",
     "OperatorLogEntry",
     "Reading",
     "Recommendation",
     "Rollup",
     "Site",
+    "StatusMetric",
     "Tag",
     "User",
 ]
@@ -292,3 +297,55 @@ class FeedHealth(Base):
     last_error: Mapped[str | None] = mapped_column(sa.Text)
     last_error_at: Mapped[datetime | None] = mapped_column(UTCDateTime())
     updated_at: Mapped[datetime] = mapped_column(UTCDateTime())
+
+
+#: States of a fishway's overview status (:mod:`db.status`).
+STATUS_STATES = ("in_criteria", "out_of_criteria", "out_of_service", "no_data", "model_error")
+#: Display statuses of one metric of the status.
+METRIC_STATUSES = ("normal", "abnormal", "stale", "bad", "none")
+
+
+class FishwayStatusRow(Base):
+    """The newest overview status of a fishway (one row each, replaced every ingest cycle)."""
+
+    __tablename__ = "fishway_status"
+    __table_args__ = (sa.CheckConstraint(_in("state", STATUS_STATES), name="state_known"),)
+    fishway_id: Mapped[int] = mapped_column(sa.ForeignKey("fishways.id"), primary_key=True,
+                                            autoincrement=False)
+    computed_ms: Mapped[int] = mapped_column(sa.BigInteger)
+    state: Mapped[str] = mapped_column(sa.String(20))
+    reason: Mapped[str] = mapped_column(sa.Text, server_default="")
+    worst: Mapped[str] = mapped_column(sa.Text, server_default="")
+    mode: Mapped[str] = mapped_column(sa.String(20))
+    data_ms: Mapped[int | None] = mapped_column(sa.BigInteger)
+    fresh_until_ms: Mapped[int | None] = mapped_column(sa.BigInteger)
+    stale: Mapped[bool] = mapped_column(sa.Boolean)
+    adjust_status: Mapped[str] = mapped_column(sa.String(20))
+    adjust_text: Mapped[str] = mapped_column(sa.Text, server_default="")
+    adjust_changes: Mapped[str] = mapped_column(sa.Text, server_default="")
+    adjust_stale: Mapped[bool] = mapped_column(sa.Boolean)
+    gauges: Mapped[str] = mapped_column(sa.Text, server_default="")
+    gauges_ok: Mapped[bool] = mapped_column(sa.Boolean)
+    problems: Mapped[str] = mapped_column(sa.Text, server_default="")
+
+
+class StatusMetric(Base):
+    """One displayed quantity of a fishway's newest status (SI values and display texts)."""
+
+    __tablename__ = "fishway_status_metrics"
+    __table_args__ = (sa.CheckConstraint(_in("status", METRIC_STATUSES), name="status_known"),)
+    fishway_id: Mapped[int] = mapped_column(sa.ForeignKey("fishways.id"), primary_key=True,
+                                            autoincrement=False)
+    key: Mapped[str] = mapped_column(sa.String(40), primary_key=True)
+    position: Mapped[int] = mapped_column(sa.SmallInteger)
+    label: Mapped[str] = mapped_column(sa.String(100))
+    kind: Mapped[str] = mapped_column(sa.String(20))
+    value: Mapped[float | None] = mapped_column(sa.Double)
+    lo: Mapped[float | None] = mapped_column(sa.Double)
+    hi: Mapped[float | None] = mapped_column(sa.Double)
+    target: Mapped[float | None] = mapped_column(sa.Double)
+    status: Mapped[str] = mapped_column(sa.String(10))
+    note: Mapped[str] = mapped_column(sa.Text, server_default="")
+    source: Mapped[str] = mapped_column(sa.String(100), server_default="")
+    text: Mapped[str] = mapped_column(sa.String(60), server_default="")
+    band_text: Mapped[str] = mapped_column(sa.String(200), server_default="")

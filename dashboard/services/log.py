@@ -49,6 +49,7 @@ from db.dashboard_queries import (
 )
 from db.history import add_log_entry, record_actuator_setting
 from db.readings import store_batch
+from db.status.store import renew_status
 from ops_logic.ladder import Ladder, SettingError
 from ops_logic.report_format import format_setting, format_value, setting_range_text
 from ops_logic.tags import gauged_pools
@@ -231,7 +232,10 @@ def submit(ctx: AppContext, author: str, form: LogForm, now: datetime) -> Submit
         when = now
     fw = fishway_db_id(ctx, form.fishway_id)
     if form.kind == "adjustment":
-        return _adjustments(ctx, ladder, fw, author, form, when, problems)
+        result = _adjustments(ctx, ladder, fw, author, form, when, problems)
+        if result.ok:  # the overview's adjustment-due judgement may change at once
+            renew_status(ctx.site, ctx.engine, now)
+        return result
     if form.kind == "observation":
         return _observation(ctx, ladder, fw, author, form, when, problems)
     if form.kind == "shift_note":

@@ -1,75 +1,52 @@
-"""The overview and the wall display: one status per fishway, from the database and the solver.
+"""The overview and the wall display: the stored status of each fishway, as of now.
 
-What the state rests on (the hydraulic state is *solved*, not read from a stored prediction):
-the latest usable forebay and tailwater readings (QARTOD flag 1 or 2, no older than
-:data:`STALE_POLLS` poll periods) and the latest actuator positions (the position tags, or the
-settings last logged in ``actuator_settings`` when a position tag has no usable reading) go to
-``Ladder.solve`` of the fishway *in force* (site file plus supervisors' overrides,
-:func:`dashboard.services.site.effective_site`). A solve takes about a millisecond on the demo's
-40-pool ladder (less warm-started from the ladder's previous profile, as each refresh is), and
-results are cached by their rounded inputs. The entrance head and the exit weir head are taken
-from the gauges where they exist (entrance-pool gauge − tailwater; forebay − exit crest
-position), as the alarm rules take them;
-flows, the worst pool head drop and the power densities come from the solved profile. The
-gauged pool levels are compared with the profile as a check of the model and the gauges.
+The status is judged once per ingest cycle (:mod:`db.status`: solver, readings, positions,
+the latest recommendation; see :mod:`db.status.judge` for what it rests on) and stored; a
+refresh reads it back in two statements (:func:`db.status.read_status`) and adds only what
+changes between cycles:
 
-States: ``out_of_service`` (a supervisor set the fishway's mode to maintenance or out of
-service), ``no_data`` (forebay, tailwater or an actuator position missing, stale or failing
-QC), ``model_error`` (the solver refused the inputs, e.g. tailwater above forebay),
-``out_of_criteria`` (a hydraulic criterion outside its band), ``in_criteria``. Water quality
-(temperature, its 7DADM, dissolved oxygen) is shown beside its limits but does not set the
-hydraulic state: alarms carry it.
+- the data's age, from the time of the readings the status rests on;
+- staleness since: when ``now`` is past the status's ``fresh_until_ms`` (a reading it took as
+  current has gone stale) the ingest has not renewed it (it does every poll), so the fishway
+  shows ``no_data`` with the reason, every value greyed, and the site line says so;
+- the alarm counts (live: they change with every acknowledgement): active alarms
+  (unacknowledged, acknowledged, returned to normal but unacknowledged) by priority, from a
+  GROUP BY over the alarms table; with no row in that table at all the display says "no
+  alarm data".
 
-Alarm counts come from the alarms table (``db.dashboard_queries.alarm_counts``, a GROUP BY
-over the table ``db.alarms.alarms_frame`` reads): active alarms
-(unacknowledged, acknowledged, returned to normal but unacknowledged) by priority; with no row
-in the table at all the display says "no alarm data". An adjustment is due when the latest
-stored recommendation differs from the current positions by more than the ``adjustment_due``
-thresholds of the fishway's alarm settings.
+A fishway without any stored status (a new database before the ingest's first cycle) shows
+``no_data`` saying so.
 """
 
 from __future__ import annotations
 
-import math
-import threading
-import time
-from collections import OrderedDict
 from collections.abc import Mapping
-from dataclasses import dataclass, field
-from datetime import UTC, datetime, timedelta
+from dataclasses import dataclass, replace
+from datetime import UTC, datetime
 from typing import Any
 
-import pandas as pd
-
-from dashboard.services.site import MODE_LABELS, EffectiveSite, effective_site, format_value
-from db.catalog import tags_frame
-from db.dashboard_queries import (
-    alarm_counts,
-    hourly_maxima,
-    latest_good_values,
-    latest_recommendation,
+from db.status import FishwayStatus, read_status
+from db.status.judge import find_tag, tag_catalogue, worst_criterion
+from db.status.model import (
+    STALE_POLLS,
+    STATE_LABELS,
+    Adjustment,
+    Metric,
+    age_text,
+    metric_keys,
 )
-from db.history import latest_actuator_settings
-from db.readings import latest_values
-from ops_logic.alarms.temperature import seven_day_average_daily_max
-from ops_logic.ladder import Ladder, SettingSpec
-from ops_logic.profile import Criterion, Profile
-from ops_logic.site import AdjustableWeirExit, Fishway, Site
-from ops_logic.tags import TagDef, site_tags
+from ops_logic.site import Site
 
 __all__ = [
     "ACTIVE_ALARM_STATES",
-    "MODEL_GAUGE_TOLERANCE_M",
     "PRIORITIES",
     "SPARK_HOURS",
     "SPARK_KINDS",
     "SPARK_ROLES",
     "STALE_POLLS",
     "STATE_LABELS",
-    "Adjustment",
     "FishwayStatus",
     "Metric",
-    "Reading",
     "Snapshot",
     "age_text",
     "metric_keys",
@@ -79,27 +56,8 @@ __all__ = [
     "worst_criterion",
 ]
 
-STALE_POLLS = 3
-"""A reading older than this many poll periods of its tag is stale (common practice)."""
-MODEL_GAUGE_TOLERANCE_M = 0.06
-"""A gauged pool differing from the solved profile by more than this [m] (about 0.2 ft) is
-shown as a model/gauge disagreement (an operating choice of ours, not a published value)."""
-POSITION_SLACK = {"level": 0.03, "opening": 1.0, "count": 0.0}
-"""How far [m, %, pumps] a measured position may lie outside its actuator range and still be
-taken as the range end (position-sensor noise at an end stop); farther is an error."""
 ACTIVE_ALARM_STATES = ("unacknowledged", "acknowledged", "rtn_unacknowledged")
 PRIORITIES = ("critical", "high", "medium", "low")
-STATE_LABELS = {"in_criteria": "IN CRITERIA", "out_of_criteria": "OUT OF CRITERIA",
-                "out_of_service": "OUT OF SERVICE", "no_data": "NO CURRENT DATA",
-                "model_error": "MODEL ERROR"}
-USABLE_FLAGS = (1, 2)
-DEFAULT_TEMP_C = 10.0
-_SOLVE_CACHE_SIZE = 64
-_CATALOGUE_TTL_S = 300.0
-TEMP_7DADM_TTL_S = 600.0
-"""The 7DADM (a seven-day statistic) is recomputed at most this often [s]."""
-
-
 SPARK_HOURS = 6.0
 """Span of the overview's sparklines [h] (one-minute rollups: at most 360 points each)."""
 SPARK_ROLES = {"forebay": "forebay", "tailwater": "tailwater", "water_temp": "water_temp",
@@ -115,111 +73,6 @@ def now() -> datetime:
     return datetime.now(UTC)
 
 
-def metric_keys(fishway: Fishway) -> list[tuple[str, str]]:
-    """(key, label) of the metrics of a fishway's panel, in display order."""
-    out = [("forebay", "Forebay"), ("tailwater", "Tailwater"), ("ladder_flow", "Ladder flow"),
-           ("attraction_flow", "Attraction flow"), ("head_drop", "Worst pool head drop"),
-           ("entrance_head", "Entrance head")]
-    if fishway.targets.exit_head is not None and isinstance(fishway.exit, AdjustableWeirExit):
-        out.append(("exit_head", "Exit weir head"))
-    out += [("water_temp", "Water temperature"), ("temp_7dadm", "Temperature 7DADM"),
-            ("do", "Dissolved oxygen")]
-    return out
-
-
-def age_text(age_s: float | None) -> str:
-    """An age for display: ``'8 s'``, ``'4 min'``, ``'2.5 h'``, ``'3 d'``.
-
-    >>> age_text(8.2), age_text(250), age_text(9000), age_text(300000), age_text(None)
-    ('8 s', '4 min', '2.5 h', '3 d', '—')
-    """
-    if age_s is None or not math.isfinite(age_s):
-        return "—"
-    if age_s < 120:
-        return f"{max(age_s, 0):.0f} s"
-    if age_s < 7200:
-        return f"{age_s / 60:.0f} min"
-    if age_s < 172800:
-        return f"{age_s / 3600:.1f} h"
-    return f"{age_s / 86400:.0f} d"
-
-
-@dataclass(frozen=True)
-class Reading:
-    """The newest reading of a tag as the overview judges it. ``status``: ``ok``, ``stale``,
-    ``suspect`` (QARTOD 3), ``fail`` (4), ``missing`` (9 or no value), ``none`` (no reading)."""
-
-    value: float | None
-    flag: int | None
-    age_s: float | None
-    status: str
-
-    @property
-    def usable(self) -> bool:
-        return self.status == "ok"
-
-
-@dataclass(frozen=True)
-class Metric:
-    """One displayed quantity with its band (SI). ``status``: ``normal``, ``abnormal``
-    (outside its band), ``stale``, ``bad`` (failed QC or missing), ``none`` (no value)."""
-
-    key: str
-    label: str
-    kind: str
-    value: float | None
-    lo: float | None = None
-    hi: float | None = None
-    target: float | None = None
-    status: str = "normal"
-    note: str = ""
-    source: str = ""
-
-    @property
-    def in_band(self) -> bool:
-        v = self.value
-        return v is not None and (self.lo is None or v >= self.lo - 1e-9) and (
-            self.hi is None or v <= self.hi + 1e-9)
-
-
-@dataclass(frozen=True)
-class Adjustment:
-    """Whether an adjustment is due. ``status``: ``due``, ``none``, ``no_recommendation``,
-    ``unknown`` (positions unknown); ``stale`` says the recommendation is old."""
-
-    status: str
-    text: str
-    changes: tuple[str, ...] = ()
-    stale: bool = False
-
-
-@dataclass(frozen=True)
-class FishwayStatus:
-    id: str
-    name: str
-    state: str
-    reason: str
-    worst: str
-    age_s: float | None
-    stale: bool
-    metrics: tuple[Metric, ...]
-    alarms: dict[str, int] | None
-    adjustment: Adjustment
-    gauges: str
-    gauges_ok: bool
-    mode: str
-    profile: Profile | None = field(default=None, compare=False, repr=False)
-
-    @property
-    def state_label(self) -> str:
-        if self.state == "out_of_service" and self.mode == "maintenance":
-            return "MAINTENANCE"
-        return STATE_LABELS[self.state]
-
-    def metric(self, key: str) -> Metric:
-        return next(m for m in self.metrics if m.key == key)
-
-
 @dataclass(frozen=True)
 class Snapshot:
     now: datetime
@@ -229,283 +82,6 @@ class Snapshot:
     fishways: tuple[FishwayStatus, ...]
     site_alarms: dict[str, int] | None
     problems: tuple[str, ...] = ()
-
-
-# -- catalogue and solve caches -------------------------------------------------------------------
-_lock = threading.Lock()
-# Cache entries keep the objects they were made for and are used only for those very objects
-# (an id can be reused once an object is gone).
-_catalogue: dict[tuple, tuple[Site, Any, float, dict[str, tuple[TagDef, int, float]]]] = {}
-_solves: OrderedDict[tuple, tuple[Ladder, Profile | Exception]] = OrderedDict()
-_t7: dict[tuple, float | None] = {}
-_last: dict[int, tuple[Ladder, Profile]] = {}
-"""The newest profile of each ladder: the warm start of its next solve."""
-
-
-def _tags(site: Site, engine: Any) -> dict[str, tuple[TagDef, int, float]]:
-    """Tag name → (definition, database id, poll period [s]) for the site's tags that exist
-    in the database (cached for a few minutes)."""
-    key = (id(engine), id(site))
-    now = time.monotonic()
-    hit = _catalogue.get(key)
-    if hit is not None and hit[0] is site and hit[1] is engine and now - hit[2] < \
-            _CATALOGUE_TTL_S:
-        return hit[3]
-    frame = tags_frame(engine)
-    by_name = {str(n): (int(i), float(p)) for i, n, p in
-               zip(frame.index, frame["name"], frame["poll_period_s"], strict=True)}
-    out = {t.name: (t, *by_name[t.name]) for t in site_tags(site) if t.name in by_name}
-    with _lock:
-        _catalogue[key] = (site, engine, now, out)
-    return out
-
-
-def _solve(ladder: Ladder, version: int, forebay: float, tailwater: float,
-           settings: Mapping[str, float], temp_c: float) -> Profile:
-    key = (ladder.id, id(ladder), version, round(forebay, 3), round(tailwater, 3),
-           tuple(sorted((k, round(v, 3)) for k, v in settings.items())), round(temp_c, 1))
-    with _lock:
-        entry = _solves.get(key)
-        hit = entry[1] if entry is not None and entry[0] is ladder else None
-        if hit is not None:
-            _solves.move_to_end(key)
-    if hit is None:
-        prev = _last.get(id(ladder))
-        warm = prev[1] if prev is not None and prev[0] is ladder else None
-        try:
-            hit = ladder.solve(forebay, tailwater, settings, temperature_c=temp_c, warm=warm)
-        except ValueError as exc:  # SettingError included: refused inputs
-            hit = exc
-        with _lock:
-            _solves[key] = (ladder, hit)
-            if isinstance(hit, Profile) and hit.state == "flowing":
-                _last[id(ladder)] = (ladder, hit)
-            while len(_solves) > _SOLVE_CACHE_SIZE:
-                _solves.popitem(last=False)
-    if isinstance(hit, Exception):
-        raise hit
-    return hit
-
-
-# -- judging readings --------------------------------------------------------------------------
-_Row = tuple[int, float, int]  # (epoch ms, value, flag)
-
-
-def _rows(frame: pd.DataFrame) -> dict[int, _Row]:
-    """A latest-values frame (index tag_id; ts, value, flag) as plain tuples by tag id."""
-    ms = frame["ts"].to_numpy(dtype="datetime64[ms]").astype("int64").tolist()
-    return dict(zip(frame.index.tolist(), zip(ms, frame["value"].tolist(),
-                                              frame["flag"].tolist(), strict=True),
-                    strict=True))
-
-
-def _reading(latest: Mapping[int, _Row], good: Mapping[int, _Row],
-             entry: tuple[TagDef, int, float] | None, now_ms: int) -> Reading:
-    if entry is None:
-        return Reading(None, None, None, "none")
-    _, tag_id, poll_s = entry
-    limit_s = STALE_POLLS * poll_s
-    row = latest.get(tag_id)
-    if row is None:
-        return Reading(None, None, None, "none")
-    age = (now_ms - row[0]) / 1000.0
-    value, flag = float(row[1]), int(row[2])
-    if flag in USABLE_FLAGS and math.isfinite(value):
-        return Reading(value, flag, age, "ok" if age <= limit_s else "stale")
-    g = good.get(tag_id)
-    if g is not None:  # the newest failed QC: a usable one still fresh enough?
-        g_age = (now_ms - g[0]) / 1000.0
-        if g_age <= limit_s:
-            return Reading(float(g[1]), int(g[2]), g_age, "ok")
-    status = {3: "suspect", 4: "fail"}.get(flag, "missing")
-    return Reading(value if math.isfinite(value) else None, flag, age, status)
-
-
-_READING_NOTES = {"stale": "stale", "suspect": "suspect (QC)", "fail": "failed QC",
-                  "missing": "missing", "none": "no reading"}
-
-
-def _metric_from(key: str, label: str, kind: str, r: Reading, lo: float | None = None,
-                 hi: float | None = None, target: float | None = None, note: str = "",
-                 source: str = "gauge") -> Metric:
-    if r.status == "ok":
-        m = Metric(key, label, kind, r.value, lo, hi, target, "normal", note, source)
-        return m if m.in_band else Metric(key, label, kind, r.value, lo, hi, target,
-                                          "abnormal", note, source)
-    what = _READING_NOTES[r.status]
-    extra = f"{what}, {age_text(r.age_s)} old" if r.age_s is not None else what
-    status = "stale" if r.status in ("stale", "suspect") else "bad"
-    if r.status == "none":
-        status = "none"
-    return Metric(key, label, kind, r.value if r.status in ("stale", "suspect") else None, lo,
-                  hi, target, status, "; ".join(x for x in (extra, note) if x), source)
-
-
-def _margin(c: Criterion | Metric, value: float) -> float:
-    lo, hi = (c.min, c.max) if isinstance(c, Criterion) else (c.lo, c.hi)
-    ref = (hi - lo) if lo is not None and hi is not None else abs(hi if hi is not None else lo)
-    ref = ref if ref and ref > 0 else 1.0
-    m = math.inf
-    if lo is not None:
-        m = min(m, (value - lo) / ref)
-    if hi is not None:
-        m = min(m, (hi - value) / ref)
-    return m
-
-
-def worst_criterion(criteria: list[Criterion]) -> Criterion | None:
-    """The criterion with the least margin to its band, relative to the band's width (or to
-    its one limit): the farthest out when some fail, else the closest to failing.
-
-    >>> a = Criterion("head_drop:B01", 0.30, None, 0.366, True, "m", "length")
-    >>> b = Criterion("entrance_head", 0.20, 0.305, 0.457, False, "m", "length")
-    >>> worst_criterion([a, b]).name
-    'entrance_head'
-    """
-    worst, least = None, math.inf
-    for c in criteria:  # min() over _margin, inlined: some 170 criteria a refresh
-        lo, hi = c.min, c.max
-        if lo is None and hi is None:
-            continue
-        ref = (hi - lo) if lo is not None and hi is not None else abs(hi if hi is not None
-                                                                       else lo)
-        ref = ref if ref and ref > 0 else 1.0
-        m = math.inf
-        if lo is not None:
-            m = min(m, (c.value - lo) / ref)  # min(), as _margin: a NaN value gives inf
-        if hi is not None:
-            m = min(m, (hi - c.value) / ref)
-        if worst is None or m < least:
-            worst, least = c, m
-    return worst
-
-
-_CRITERION_LABELS = {"forebay_level": "Forebay level", "tailwater_level": "Tailwater level",
-                     "exit_head": "Exit weir head", "ladder_flow": "Ladder flow",
-                     "head_drop": "Pool head drop", "entrance_head": "Entrance head",
-                     "power_density": "Power density", "diffuser_velocity": "Diffuser velocity",
-                     "attraction_flow": "Attraction flow"}
-
-
-def _criterion_text(c: Criterion, units: str) -> str:
-    base, _, where = c.name.partition(":")
-    label = _CRITERION_LABELS.get(base, base.replace("_", " ").capitalize())
-    kind = c.kind if c.kind != "length" or base not in ("forebay_level", "tailwater_level") \
-        else "elevation"
-    value = format_value(c.value, kind, units)
-    if c.min is not None and c.max is not None:
-        band = f"band {format_value(c.min, kind, units, unit=False)}–" \
-               f"{format_value(c.max, kind, units)}"
-    elif c.max is not None:
-        band = f"max {format_value(c.max, kind, units)}"
-    else:
-        band = f"min {format_value(c.min, kind, units)}"
-    return f"{label}{' at ' + where if where else ''} {value} ({band})"
-
-
-# -- one fishway ------------------------------------------------------------------------------
-@dataclass
-class _Inputs:
-    """What one refresh read from the database (shared by all fishways)."""
-
-    tags: dict[str, tuple[TagDef, int, float]]
-    latest: dict[int, _Row]
-    good: dict[int, _Row]
-    alarms: list[tuple[int | None, str, str, int]]
-    now_ms: int
-
-
-_by_role: dict[int, tuple[Mapping, dict[tuple[str, str], list[tuple[TagDef, int, float]]]]] = {}
-"""Per catalogue mapping of :func:`_tags`: its entries grouped by (fishway, role)."""
-
-
-def _find(tags: Mapping[str, tuple[TagDef, int, float]], fishway_id: str, role: str,
-          **match: str | None) -> tuple[TagDef, int, float] | None:
-    """The first entry of ``tags`` (in its order) of this fishway and role whose fields equal
-    ``match``. The entries are grouped by (fishway, role) once per catalogue mapping: this is
-    asked some twenty times a refresh."""
-    hit = _by_role.get(id(tags))
-    if hit is None or hit[0] is not tags:
-        groups: dict[tuple[str, str], list[tuple[TagDef, int, float]]] = {}
-        for entry in tags.values():
-            groups.setdefault((entry[0].fishway_id, entry[0].role), []).append(entry)
-        with _lock:
-            if len(_by_role) > 16:
-                _by_role.clear()
-            _by_role[id(tags)] = (tags, groups)
-        hit = (tags, groups)
-    for entry in hit[1].get((fishway_id, role), ()):
-        if all(getattr(entry[0], k) == v for k, v in match.items()):
-            return entry
-    return None
-
-
-def _positions(ladder: Ladder, f: Fishway, inp: _Inputs, engine: Any, db_id: int | None,
-               units: str) -> tuple[dict[str, float], list[str], list[str]]:
-    """Current setting values, the settings without a known position, out-of-range notes."""
-    out: dict[str, float] = {}
-    missing: list[str] = []
-    wrong: list[str] = []
-    logged: pd.DataFrame | None = None
-    for spec in ladder.settings.values():
-        r = _reading(inp.latest, inp.good, _find(inp.tags, f.id, "setting", setting=spec.name),
-                     inp.now_ms)
-        value = r.value if r.status in ("ok", "stale") else None
-        if value is None and db_id is not None:
-            if logged is None:
-                logged = latest_actuator_settings(engine, db_id)
-            if spec.actuator in logged.index:
-                value = float(logged.loc[spec.actuator, "value"])
-        if value is None:
-            missing.append(spec.label.lower())
-            continue
-        slack = POSITION_SLACK[spec.kind]
-        if not spec.low - slack - 1e-9 <= value <= spec.high + slack + 1e-9:
-            wrong.append(f"{spec.label.lower()} {_setting_text(spec, value, units)} is outside "
-                         f"its range")
-            continue
-        out[spec.name] = min(max(value, spec.low), spec.high)
-    return out, missing, wrong
-
-
-def _setting_text(spec: SettingSpec, value: float, units: str) -> str:
-    if spec.kind == "level":
-        return format_value(value, "elevation", units)
-    if spec.kind == "opening":
-        return f"{value:.0f} %"
-    return f"{value:.0f} pump{'s' if round(value) != 1 else ''}"
-
-
-def _adjustment(ladder: Ladder, f: Fishway, rec: dict | None, current: Mapping[str, float],
-                missing: list[str], now: datetime, stale_after_s: float,
-                units: str) -> Adjustment:
-    if rec is None:
-        return Adjustment("no_recommendation", "no recommendation stored yet")
-    age = (now - pd.Timestamp(rec["ts"]).to_pydatetime()).total_seconds()
-    stale = age > stale_after_s
-    old = f" (recommendation {age_text(age)} old)" if stale else ""
-    if missing:
-        return Adjustment("unknown", f"positions unknown: {', '.join(missing)}{old}",
-                          stale=stale)
-    thr = f.alarms.adjustment_due
-    limits = {"level": thr.threshold_m, "opening": thr.threshold_pct,
-              "count": thr.threshold_pumps}
-    changes = []
-    unknown = sorted(set(rec.get("settings") or {}) - set(ladder.settings))
-    for name, spec in ladder.settings.items():
-        want = (rec.get("settings") or {}).get(name)
-        if want is None or name not in current:
-            continue
-        if abs(float(want) - current[name]) > limits[spec.kind]:
-            changes.append(f"{spec.label} {_setting_text(spec, current[name], units)} → "
-                           f"{_setting_text(spec, float(want), units)}")
-    extra = f"; unknown settings in it: {', '.join(unknown)}" if unknown else ""
-    infeasible = "" if rec.get("feasible", True) else " — no setting meets every criterion"
-    if changes:
-        return Adjustment("due", f"adjustment due{infeasible}{old}{extra}", tuple(changes),
-                          stale)
-    return Adjustment("none", f"settings match the latest recommendation{old}{extra}",
-                      stale=stale)
 
 
 def _alarm_counts(alarms: list[tuple[int | None, str, str, int]],
@@ -525,194 +101,63 @@ def _alarm_counts(alarms: list[tuple[int | None, str, str, int]],
     return out
 
 
-def _temp_7dadm(engine: Any, entry: tuple[TagDef, int, float] | None, now: datetime,
-                time_zone: str) -> float | None:
-    """The newest 7DADM (today's or yesterday's) from the hourly rollups' maxima, or None."""
-    if entry is None:
-        return None
-    key = (str(engine.url), entry[1], int(now.timestamp() // TEMP_7DADM_TTL_S))
-    if key in _t7:
-        return _t7[key]
-    ts_ms, vmax = hourly_maxima(engine, entry[1], now - timedelta(days=8), now)
-    out = None
-    if ts_ms.size:
-        series = seven_day_average_daily_max(
-            pd.DatetimeIndex(ts_ms.astype("datetime64[ms]")).tz_localize("UTC"), vmax,
-            time_zone=time_zone).dropna()
-        today = pd.Timestamp(now).tz_convert(time_zone).date()
-        if len(series) and series.index[-1] >= today - timedelta(days=1):
-            out = float(series.iloc[-1])
-    with _lock:
-        if len(_t7) > 256:
-            _t7.clear()
-        _t7[key] = out
-    return out
+def _local_clock(ms: int, time_zone: str) -> str:
+    from zoneinfo import ZoneInfo
+
+    return datetime.fromtimestamp(ms / 1000.0, tz=ZoneInfo(time_zone)).strftime("%H:%M:%S")
 
 
-def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any,
-             now: datetime) -> FishwayStatus:
-    f, ladder = eff.fishways[fid], eff.ladders[fid]
-    units, db_id = site.site.units, eff.db_ids.get(fid)
-    t, al = f.targets, f.alarms
-    read = {role: _reading(inp.latest, inp.good, _find(inp.tags, fid, role), inp.now_ms)
-            for role in ("forebay", "tailwater", "water_temp", "do")}
-    fb, tw = read["forebay"], read["tailwater"]
-    positions, missing, wrong = _positions(ladder, f, inp, engine, db_id, units)
-    temp_c = read["water_temp"].value if read["water_temp"].usable else DEFAULT_TEMP_C
+def _no_status(site: Site, fid: str) -> FishwayStatus:
+    f = site.fishway(fid)
+    why = "no status computed yet: the ingest service computes it every poll"
+    metrics = tuple(Metric(key, label, "length", None, status="none", text="—",
+                           band_text="") for key, label in metric_keys(f))
+    return FishwayStatus(fid, f.name, "no_data", why, why, None, True, metrics, None,
+                         Adjustment("unknown", "no status yet"), "no status yet", True,
+                         "operating")
 
-    reason, profile, state = "", None, "in_criteria"
-    if eff.modes[fid] != "operating":
-        state, reason = "out_of_service", MODE_LABELS[eff.modes[fid]]
-    problems = [f"{name} gauge {_READING_NOTES[r.status]}" + (
-        f" ({age_text(r.age_s)} old)" if r.age_s is not None else "")
-        for name, r in (("forebay", fb), ("tailwater", tw)) if not r.usable]
-    if missing:
-        problems.append("no position for " + ", ".join(missing))
-    if problems or wrong:
-        if state != "out_of_service":
-            state = "no_data" if problems else "model_error"
-            reason = "; ".join(problems + wrong)
-    else:
-        try:
-            profile = _solve(ladder, eff.version, fb.value, tw.value, positions, temp_c)
-        except ValueError as exc:
-            if state != "out_of_service":
-                state, reason = "model_error", str(exc)
 
-    # measured heads where the gauges exist (as the alarm rules take them)
-    entrance_pool = f.pool_ids()[-1]
-    ep = next((r for r in (_reading(inp.latest, inp.good, _find(inp.tags, fid, role,
-                                                                pool_id=entrance_pool),
-                                    inp.now_ms) for role in ("pool", "pool_b")) if r.usable),
-              None)
-    checks: list[Criterion] = list(profile.criteria) if profile is not None else []
-    measured: dict[str, tuple[float, str]] = {}
-    if ep is not None and tw.usable:
-        measured["entrance_head"] = (ep.value - tw.value, f"gauge {entrance_pool} − tailwater")
-    if isinstance(f.exit, AdjustableWeirExit) and fb.usable and "exit_crest_m" in positions:
-        measured["exit_head"] = (fb.value - positions["exit_crest_m"], "forebay − crest")
-    checks = [c._replace(value=measured[c.name][0], ok=(c.min is None or measured[c.name][0]
-                                                        >= c.min - 1e-9) and (
-        c.max is None or measured[c.name][0] <= c.max + 1e-9)) if c.name in measured else c
-        for c in checks]
-    worst = worst_criterion(checks)
-    if profile is not None and state == "in_criteria":
-        bad = [c for c in checks if not c.ok]
-        if profile.state == "no_flow":
-            state, reason = "out_of_criteria", profile.reason
-        elif bad:
-            state = "out_of_criteria"
-            reason = "out of criteria: " + "; ".join(_criterion_text(c, units) for c in sorted(
-                bad, key=lambda c: _margin(c, c.value))[:3]) + (
-                f" and {len(bad) - 3} more" if len(bad) > 3 else "")
-        else:
-            reason = "every criterion in its band"
-    worst_text = _criterion_text(worst, units) if worst is not None else reason
-
-    def crit(name: str) -> Criterion | None:
-        return next((c for c in checks if c.name == name), None)
-
-    def model_metric(key: str, label: str, kind: str, c: Criterion | None, value: float | None,
-                     lo: float | None, hi: float | None, target: float | None, note: str = "",
-                     source: str = "model") -> Metric:
-        if value is None:
-            return Metric(key, label, kind, None, lo, hi, target, "none",
-                          reason if state in ("no_data", "model_error") else "", source)
-        m = Metric(key, label, kind, value, lo, hi, target, "normal", note, source)
-        return m if m.in_band else Metric(key, label, kind, value, lo, hi, target, "abnormal",
-                                          note, source)
-
-    drops = [c for c in checks if c.name.startswith("head_drop:")]
-    wd = worst_criterion(drops) if drops else None
-    eh = crit("entrance_head")
-    metrics = [
-        _metric_from("forebay", "Forebay", "elevation", fb, *f.forebay_range),
-        _metric_from("tailwater", "Tailwater", "elevation", tw, *f.tailwater_range),
-        model_metric("ladder_flow", "Ladder flow", "flow", None,
-                     profile.ladder_flow_m3s if profile else None,
-                     t.ladder_flow.min if t.ladder_flow else None,
-                     t.ladder_flow.max if t.ladder_flow else None,
-                     t.ladder_flow.aim if t.ladder_flow else None),
-        model_metric("attraction_flow", "Attraction flow", "flow", None,
-                     profile.entrance_flow_m3s if profile else None, t.min_attraction_flow,
-                     None, None, "ladder + auxiliary water"),
-        model_metric("head_drop", "Worst pool head drop", "length", wd,
-                     wd.value if wd else None, t.pool_head_drop.min, t.pool_head_drop.max,
-                     t.pool_head_drop.aim, f"at {wd.name.split(':', 1)[1]}" if wd else ""),
-        model_metric("entrance_head", "Entrance head", "length", eh, eh.value if eh else None,
-                     t.entrance_head.min, t.entrance_head.max, t.entrance_head.aim,
-                     source=measured["entrance_head"][1] if "entrance_head" in measured
-                     else "model"),
-    ]
-    if t.exit_head is not None and isinstance(f.exit, AdjustableWeirExit):
-        xh = crit("exit_head")
-        value = measured["exit_head"][0] if "exit_head" in measured else (
-            xh.value if xh else None)
-        metrics.append(model_metric("exit_head", "Exit weir head", "length", xh, value,
-                                    t.exit_head.min, t.exit_head.max, t.exit_head.aim,
-                                    source="forebay − crest" if "exit_head" in measured
-                                    else "model"))
-    metrics.append(_metric_from("water_temp", "Water temperature", "temperature",
-                                read["water_temp"], None, al.temp_high_high.limit_c,
-                                note=f"blocking {al.temp_high_high.limit_c:.1f} °C"))
-    t7 = _temp_7dadm(engine, _find(inp.tags, fid, "water_temp"), now, site.site.time_zone)
-    limit7 = al.temp_high_limit_c
-    metrics.append(model_metric("temp_7dadm", "Temperature 7DADM", "temperature", None, t7,
-                                None, limit7, None, f"criterion {limit7:.0f} °C",
-                                source="hourly maxima") if t7 is not None else
-                   Metric("temp_7dadm", "Temperature 7DADM", "temperature", None, None, limit7,
-                          None, "none", "needs 7 full days of readings", "hourly maxima"))
-    metrics.append(_metric_from("do", "Dissolved oxygen", "do", read["do"],
-                                al.do_low.limit_mg_l, None,
-                                note=f"low-low {al.do_low_low.limit_mg_l:.1f} mg/L"))
-
-    # gauged pools against the profile
-    gauges, gauges_ok = "no gauged pools", True
-    if profile is not None:
-        levels = {p.id: p.water_level_m for p in profile.pools}
-        diffs = []
-        for entry in inp.tags.values():
-            tag = entry[0]
-            if tag.fishway_id == fid and tag.role in ("pool", "pool_b") and tag.pool_id in levels:
-                r = _reading(inp.latest, inp.good, entry, inp.now_ms)
-                if r.usable:
-                    diffs.append((r.value - levels[tag.pool_id], tag.pool_id))
-        if diffs:
-            d, where = max(diffs, key=lambda x: abs(x[0]))
-            gauges_ok = abs(d) <= MODEL_GAUGE_TOLERANCE_M
-            gauges = (f"{len(diffs)} pool gauges within "
-                      f"{format_value(MODEL_GAUGE_TOLERANCE_M, 'length', units)} of the model"
-                      if gauges_ok else
-                      f"{where} gauge {format_value(abs(d), 'length', units)} "
-                      f"{'above' if d > 0 else 'below'} the model")
-    elif state != "out_of_service":
-        gauges = "no model to compare the gauges with"
-
-    ages = [r.age_s for r in (fb, tw) if r.age_s is not None]
-    age = max(ages) if len(ages) == 2 else None
-    stale = age is None or any(r.status in ("stale", "none") for r in (fb, tw))
-    rec = latest_recommendation(engine, db_id) if db_id is not None else None
-    adjust = _adjustment(ladder, f, rec, positions, missing, now,
-                         max(3 * site.ingest.recommend_seconds, 300.0), units)
-    return FishwayStatus(fid, f.name, state, reason, worst_text, age, stale, tuple(metrics),
-                         _alarm_counts(inp.alarms, db_id), adjust, gauges, gauges_ok,
-                         eff.modes[fid], profile)
+def _as_of(status: FishwayStatus, name: str, now_ms: int, alarms: dict[str, int] | None,
+           time_zone: str) -> tuple[FishwayStatus, str | None]:
+    """The stored status at ``now_ms``, and a site-line problem when it has gone stale."""
+    age = None if status.data_ms is None else (now_ms - status.data_ms) / 1000.0
+    expired = not status.stale and (status.fresh_until_ms is None
+                                    or now_ms > status.fresh_until_ms)
+    if not expired:
+        return replace(status, name=name, age_s=age, alarms=alarms), None
+    when = _local_clock(status.computed_ms, time_zone)
+    why = (f"status of {when} not renewed (data now {age_text(age)} old): is the ingest "
+           "service running?")
+    state, reason = (status.state, status.reason) if status.state == "out_of_service" else (
+        "no_data", why)
+    metrics = tuple(replace(m, status="stale", note=f"as of {when}") if m.status in (
+        "normal", "abnormal") else m for m in status.metrics)
+    adjustment = replace(status.adjustment, stale=True)
+    return replace(status, name=name, age_s=age, alarms=alarms, stale=True, state=state,
+                   reason=reason, metrics=metrics, adjustment=adjustment), \
+        f"{name}: {why}"
 
 
 def snapshot(site: Site, engine: Any, now: datetime) -> Snapshot:
-    """The status of every fishway of ``site`` at ``now`` (tz-aware); see the module."""
-    eff = effective_site(site, engine)
-    tags = _tags(site, engine)
-    ids = [entry[1] for entry in tags.values()]
-    latest = _rows(latest_values(engine, ids))
-    now_ms = int(pd.Timestamp(now).as_unit("ms").value // 1_000_000)
-    bad = [t for t, (_, value, flag) in latest.items()
-           if flag not in USABLE_FLAGS or not math.isfinite(value)]
-    good = _rows(latest_good_values(engine, bad)) if bad else {}
-    inp = _Inputs(tags, latest, good, alarm_counts(engine), now_ms)
-    statuses = tuple(_fishway(site, eff, f.id, inp, engine, now) for f in site.fishways)
-    return Snapshot(now, site.site.name, site.site.units, site.site.time_zone, statuses,
-                    _alarm_counts(inp.alarms, None), eff.problems)
+    """The status of every fishway of ``site`` as of ``now`` (tz-aware); see the module."""
+    stored = read_status(engine, site.site.name)
+    now_ms = int(now.timestamp() * 1000)
+    by_id = {s.id: s for s in stored.statuses}
+    statuses, problems = [], []
+    for f in site.fishways:
+        s = by_id.get(f.id)
+        if s is None:
+            statuses.append(_no_status(site, f.id))
+            problems.append(f"{f.name}: no status computed yet (the ingest service computes "
+                            "it every poll)")
+            continue
+        shown, problem = _as_of(s, f.name, now_ms,
+                                _alarm_counts(stored.alarm_rows, stored.db_ids.get(f.id)),
+                                site.site.time_zone)
+        statuses.append(shown)
+        problems += [*shown.problems, *([problem] if problem else [])]
+    return Snapshot(now, site.site.name, site.site.units, site.site.time_zone, tuple(statuses),
+                    _alarm_counts(stored.alarm_rows, None), tuple(problems))
 
 
 def spark_points(site: Site, engine: Any, at: datetime, since_ms: Mapping[str, int] | None = None
@@ -722,12 +167,12 @@ def spark_points(site: Site, engine: Any, at: datetime, since_ms: Mapping[str, i
     only those after ``since_ms[key]`` when given (keys without new points are left out)."""
     from db.rollups import rollups_frame
 
-    tags = _tags(site, engine)
+    tags = tag_catalogue(site, engine)
     end_ms = int(at.timestamp() // 60) * 60_000  # complete minutes only
     out: dict[str, tuple[list[int], list[float]]] = {}
     for f in site.fishways:
         for key, role in SPARK_ROLES.items():
-            entry = _find(tags, f.id, role)
+            entry = find_tag(tags, f.id, role)
             if entry is None:
                 continue
             name = f"{f.id}.{key}"

@@ -28,28 +28,25 @@ flows, velocities and power densities; temperatures are °C, dissolved oxygen mg
 
 from __future__ import annotations
 
-import math
-import threading
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from datetime import datetime
 from typing import Any
 
 import pandas as pd
-from pydantic import ValidationError
 
 from db.dashboard_queries import (
-    fishway_db_ids,
     record_setting_change,
     setting_changes_frame,
-    setting_overrides,
     users_frame,
 )
 from db.history import add_log_entry
-from ops_logic.alarms.config import RULE_NAMES, AlarmSettings
-from ops_logic.ladder import Ladder
-from ops_logic.site import AdjustableWeirExit, Fishway, GravityAux, Site, Targets
-from ops_logic.units import KINDS, display_unit, from_si, to_si
+from db.in_force import EffectiveSite, effective_site
+from db.status.store import renew_status
+from ops_logic.alarms.config import RULE_NAMES
+from ops_logic.display import display_number, format_value, parse_value, unit_label
+from ops_logic.overrides import MODE_LABELS, MODES, apply_overrides, validate_overrides
+from ops_logic.site import AdjustableWeirExit, Fishway, GravityAux, Site
 
 __all__ = [
     "MODES",
@@ -72,70 +69,6 @@ __all__ = [
     "unit_label",
     "users_rows",
 ]
-
-MODES = ("operating", "maintenance", "out_of_service")
-MODE_LABELS = {"operating": "Operating", "maintenance": "Maintenance (dewatered)",
-               "out_of_service": "Out of service (watered, closed to fish)"}
-
-# display kind -> (ops_logic.units kind or None, fixed unit label, digits us, digits si)
-_DISPLAY: dict[str, tuple[str | None, str, int, int]] = {
-    "length": ("length", "", 2, 3),
-    "elevation": ("length", "", 2, 3),
-    "flow": ("flow", "", 1, 3),
-    "velocity": ("velocity", "", 2, 3),
-    "power_density": ("power_density", "", 2, 0),
-    "area": ("area", "", 1, 2),
-    "temperature": (None, "°C", 1, 1),
-    "do": (None, "mg/L", 2, 2),
-    "pct": (None, "%", 1, 1),
-    "pumps": (None, "pumps", 1, 1),
-    "seconds": (None, "s", 0, 0),
-    "count": (None, "", 0, 0),
-}
-
-
-def unit_label(kind: str, units: str) -> str:
-    """The display unit of a display kind (``'ft'``, ``'cfs'``, ``'°C'``...)."""
-    base, label, _, _ = _DISPLAY[kind]
-    return display_unit(base, units) if base else label  # type: ignore[arg-type]
-
-
-def display_number(value_si: float, kind: str, units: str) -> float:
-    """An SI value in the display unit of ``kind``."""
-    base = _DISPLAY[kind][0]
-    return from_si(value_si, base, units) if base else value_si  # type: ignore[arg-type]
-
-
-def format_value(value_si: float | None, kind: str, units: str, *, unit: bool = True,
-                 digits: int | None = None) -> str:
-    """An SI value as display text with its unit; ``'—'`` for None or NaN."""
-    if value_si is None or not math.isfinite(value_si):
-        return "—"
-    _, _, d_us, d_si = _DISPLAY[kind]
-    d = digits if digits is not None else (d_us if units == "us" else d_si)
-    text = f"{display_number(value_si, kind, units):.{d}f}"
-    label = unit_label(kind, units)
-    return f"{text} {label}" if unit and label else text
-
-
-def parse_value(text: str, kind: str, units: str) -> float:
-    """A value typed by a user, in display units or with its own unit, as SI; ValueError
-    when it is not a finite number of that kind."""
-    text = (text or "").strip()
-    if not text:
-        raise ValueError("give a value")
-    base = _DISPLAY[kind][0]
-    if base in KINDS:
-        value = to_si(text, base, units)  # type: ignore[arg-type]
-    else:
-        try:
-            value = float(text)
-        except ValueError:
-            raise ValueError(f"{text!r} is not a number (in {_DISPLAY[kind][1]})") from None
-    if not math.isfinite(value):
-        raise ValueError(f"{text!r} is not a finite number")
-    return value
-
 
 # -- the editable parameters -------------------------------------------------------------------
 @dataclass(frozen=True)
@@ -228,122 +161,6 @@ def current_value(fishway: Fishway, key: str) -> float | None:
     return None if obj is None else float(obj)
 
 
-def _validation_text(exc: ValidationError | ValueError) -> str:
-    if isinstance(exc, ValidationError):
-        return "; ".join(e["msg"].removeprefix("Value error, ") for e in exc.errors())
-    return str(exc)
-
-
-def _targets_with(targets: Targets, values: Mapping[str, float | None]) -> Targets:
-    """Targets with several ``targets.…`` keys set at once, validated once."""
-    data = targets.model_dump()
-    for key, value in values.items():
-        parts = key.split(".")[1:]
-        node = data
-        for part in parts[:-1]:
-            node = node[part]
-        if parts[-1] not in node:
-            raise ValueError(f"no target {key!r}")
-        node[parts[-1]] = value
-    for band in _BANDS:  # the band validator reads numbers only: leave unset sides out
-        if isinstance(data.get(band), dict):
-            data[band] = {k: v for k, v in data[band].items() if v is not None}
-    return Targets.model_validate(data, context={"units": "si"})
-
-
-def _alarms_with(alarms: AlarmSettings, key: str, value: float | None) -> AlarmSettings:
-    _, rule, name = key.split(".")
-    return alarms.with_parameter(rule, name, value)
-
-
-def _apply_strict(fishway: Fishway, overrides: Mapping[str, tuple]) -> Fishway:
-    """All overrides at once; ValueError with the reason when they do not validate."""
-    unknown = [k for k in overrides if k != "mode" and not k.startswith(("targets.",
-                                                                         "alarms."))]
-    if unknown:
-        raise ValueError(f"unknown setting key {unknown[0]!r}")
-    try:
-        targets = _targets_with(fishway.targets, {k: v[0] for k, v in overrides.items()
-                                                  if k.startswith("targets.")})
-        alarms = fishway.alarms
-        for key in sorted(k for k in overrides if k.startswith("alarms.")):
-            alarms = _alarms_with(alarms, key, overrides[key][0])
-    except ValidationError as exc:
-        raise ValueError(_validation_text(exc)) from None
-    except (KeyError, AttributeError) as exc:
-        raise ValueError(f"not a setting of this fishway ({exc})") from None
-    return fishway.model_copy(update={"targets": targets, "alarms": alarms})
-
-
-def apply_overrides(fishway: Fishway, overrides: Mapping[str, tuple]) -> tuple[Fishway,
-                                                                              list[str]]:
-    """The fishway with its target and alarm-limit overrides laid over the site file's values
-    (``mode`` is not part of the model), and the overrides left out because they do not
-    validate (one line each). All are tried together first (a band's sides may only hold
-    together); when that fails, one at a time, keeping those that hold."""
-    try:
-        return _apply_strict(fishway, overrides), []
-    except ValueError:
-        pass
-    problems: list[str] = []
-    kept: dict[str, tuple] = {}
-    for key in sorted(overrides):
-        try:
-            _apply_strict(fishway, {**kept, key: overrides[key]})
-        except ValueError as exc:
-            problems.append(f"{fishway.id}: override {key} = {overrides[key][0]!r} not "
-                            f"applied: {exc}")
-            continue
-        kept[key] = overrides[key]
-    return _apply_strict(fishway, kept), problems
-
-
-# -- what is in force ---------------------------------------------------------------------------
-@dataclass(frozen=True)
-class EffectiveSite:
-    """The fishways as in force: site file plus overrides, their ladders, modes, database ids
-    and any override problems. ``version`` is the newest change id (a cache key)."""
-
-    version: int
-    fishways: dict[str, Fishway]
-    ladders: dict[str, Ladder]
-    modes: dict[str, str]
-    db_ids: dict[str, int]
-    overrides: dict[str, dict[str, tuple]]
-    problems: tuple[str, ...] = field(default=())
-
-
-_CACHE: dict[tuple, tuple[Site, Any, EffectiveSite]] = {}
-_LOCK = threading.Lock()
-
-
-def effective_site(site: Site, engine: Any) -> EffectiveSite:
-    """The fishways in force (cached until the next setting change)."""
-    version, by_db_id = setting_overrides(engine)
-    key = (id(engine), id(site))
-    hit = _CACHE.get(key)  # used only for the very objects it was made for
-    if hit is not None and hit[0] is site and hit[1] is engine and hit[2].version == version:
-        return hit[2]
-    db_ids = fishway_db_ids(engine, site.site.name)
-    fishways, ladders, modes, overrides = {}, {}, {}, {}
-    problems: list[str] = []
-    for f in site.fishways:
-        ov = by_db_id.get(db_ids.get(f.id, -1), {})
-        overrides[f.id] = ov
-        eff, bad = apply_overrides(f, ov)
-        problems.extend(bad)
-        mode = (ov.get("mode") or (None, "operating"))[1] or "operating"
-        if mode not in MODES:
-            problems.append(f"{f.id}: unknown mode {mode!r} stored; taken as operating")
-            mode = "operating"
-        fishways[f.id], modes[f.id] = eff, mode
-        ladders[f.id] = Ladder(eff, units=site.site.units)
-    out = EffectiveSite(version, fishways, ladders, modes, db_ids, overrides, tuple(problems))
-    with _LOCK:
-        _CACHE[key] = (site, engine, out)
-    return out
-
-
 def _text(value: float | None, param: Parameter, units: str) -> str:
     return "unset" if value is None else format_value(value, param.kind, units)
 
@@ -375,13 +192,14 @@ def change_setting(site: Site, engine: Any, user: Mapping[str, str], fishway_id:
         new_value = None if text.strip().lower() in ("", "none", "unset") else parse_value(
             text, param.kind, units)
         old_value = current_value(fw_now, key)
-        _apply_strict(fw_site, {**eff.overrides[fishway_id], key: (new_value, None)})
+        validate_overrides(fw_site, {**eff.overrides[fishway_id], key: (new_value, None)})
         record_setting_change(engine, db_id, key, now, action="set", set_by=author,
                               old_value=old_value, new_value=new_value, note=note)
         message = (f"{fw_site.name}: {param.label} {_text(old_value, param, units)} → "
                    f"{_text(new_value, param, units)}")
     add_log_entry(engine, now, author, "shift_note", fishway_id=db_id,
                   text=f"Setting changed: {message}" + (f" ({note})" if note else ""))
+    renew_status(site, engine, now)
     return message
 
 
@@ -402,7 +220,7 @@ def revert_setting(site: Site, engine: Any, user: Mapping[str, str], fishway_id:
     else:
         rest = {k: v for k, v in eff.overrides[fishway_id].items() if k != key}
         try:
-            _apply_strict(fw_site, rest)
+            validate_overrides(fw_site, rest)
         except ValueError as exc:
             raise ValueError(f"the other overrides would not hold without this one: "
                              f"{exc}") from None
@@ -413,6 +231,7 @@ def revert_setting(site: Site, engine: Any, user: Mapping[str, str], fishway_id:
                    f"{_text(new, param, units)} (the site file's)")
     add_log_entry(engine, now, user["name"], "shift_note", fishway_id=db_id,
                   text=f"Setting changed: {message}")
+    renew_status(site, engine, now)
     return message
 
 

@@ -185,10 +185,12 @@ def _ingest(args: argparse.Namespace) -> int:
             lambda: datetime.now(UTC))
         feeds = build_feeds(site, simulated_factory=simulated_factory(start),
                             base_dir=site_path.parent)
-        from db.alarm.evaluator import alarm_evaluator  # noqa: PLC0415 - heavy, only here
+        from db.alarm.evaluator import alarm_evaluator  # heavy: imported only here
+        from db.status import status_evaluator
 
         service = IngestService(site, engine, feeds, clock=clock, tag_ids=tag_ids,
-                                evaluators=(alarm_evaluator(engine, site),))
+                                evaluators=(alarm_evaluator(engine, site),
+                                            status_evaluator(site, engine)))
         if args.once:
             return _once(service, clock())
         print(f"fishway ingest: {site.site.name} into {engine.url.render_as_string()} "

@@ -46,12 +46,14 @@ def demo_site():
 
 @pytest.fixture(scope="session")
 def seeded_engine(tmp_path_factory, demo_site):
-    """A migrated SQLite database with SEED_HOURS of 60-second simulated readings."""
+    """A migrated SQLite database with SEED_HOURS of 60-second simulated readings and the
+    fishway status the ingest would have stored at NOW."""
     from dashboard.auth import create_user
     from db.engine import make_engine
     from db.migrate import upgrade
     from db.readings import store_batch
     from db.site_sync import sync_site
+    from db.status import update_status
     from simulator.history import generate_history
     from simulator.plant import Plant
 
@@ -67,6 +69,7 @@ def seeded_engine(tmp_path_factory, demo_site):
                              for r in batch])
     for name, (role, password) in ACCOUNTS.items():
         create_user(engine, name, role, password)
+    update_status(demo_site, engine, NOW)  # as the ingest does every cycle
     yield engine
     engine.dispose()
 

@@ -31,6 +31,8 @@ from db.history import record_recommendation
 from db.migrate import upgrade
 from db.readings import readings_frame, store_batch
 from db.site_sync import sync_site
+from db.status import compute_status, update_status
+from db.status.judge import _rows
 from ops_logic.ladder import Ladder
 from ops_logic.profile import Criterion
 
@@ -63,6 +65,8 @@ def as_user():
 
 
 def _snap(ctx, at=NOW):
+    """The ingest stores the status at ``at`` (as every cycle), a refresh reads it at ``at``."""
+    update_status(ctx.site, ctx.engine, at)
     return service.snapshot(ctx.site, ctx.engine, at)
 
 
@@ -81,8 +85,9 @@ def _store(engine, rows):
 
 
 # -- doctests of the modules ---------------------------------------------------------------------
-@pytest.mark.parametrize("name", ["dashboard.services.overview", "dashboard.services.site",
-                                  "dashboard.services.health", "dashboard.figures.overview"])
+@pytest.mark.parametrize("name", ["dashboard.services.site", "dashboard.services.health",
+                                  "dashboard.figures.overview", "ops_logic.display",
+                                  "ops_logic.overrides"])
 def test_doctests(name):
     result = doctest.testmod(importlib.import_module(name), optionflags=doctest.ELLIPSIS)
     assert result.attempted > 0 and result.failed == 0
@@ -104,7 +109,8 @@ def test_levels_are_the_newest_readings_in_feet(app_ctx):
 
 
 def test_entrance_and_exit_heads_come_from_the_gauges(app_ctx):
-    east = next(f for f in _snap(app_ctx).fishways if f.id == "east")
+    # judged as the ingest does (compute_status keeps the solved profile; the store does not)
+    east = next(f for f in compute_status(app_ctx.site, app_ctx.engine, NOW) if f.id == "east")
     e = app_ctx.engine
     entrance = _raw_latest(e, "east.P40.level") - _raw_latest(e, "east.tailwater_level")
     exit_head = _raw_latest(e, "east.forebay_level") - _raw_latest(e, "east.exit.crest")
@@ -164,6 +170,7 @@ def test_temperature_7dadm_against_pandas_on_the_raw_readings(tmp_path, demo_sit
     store_batch(engine, [(ids["east.water_temp"], start.timestamp() + float(s), float(v), 1)
                          for s, v in zip(t, temp, strict=True)])
     now = start + timedelta(days=9)
+    update_status(demo_site, engine, now)
     snap = service.snapshot(demo_site, engine, now)
     got = next(f for f in snap.fishways if f.id == "east").metric("temp_7dadm").value
 
@@ -439,7 +446,7 @@ def test_values_are_shown_in_si_for_an_si_site(app_ctx):
 
 def test_pandas_index_of_latest_values_keeps_milliseconds(app_ctx):
     # the overview converts the latest-values frame to epoch ms; pandas 3 keeps ms units
-    latest = service._rows(pd.DataFrame(
+    latest = _rows(pd.DataFrame(
         {"ts": pd.DatetimeIndex([SEED_END]).as_unit("ms"), "value": [1.0], "flag": [1]},
         index=pd.Index([7], name="tag_id")))
     assert latest == {7: (int(SEED_END.timestamp() * 1000), 1.0, 1)}
