@@ -179,6 +179,20 @@ def _increasing(times: ArrayLike, n: int) -> np.ndarray:
 
 
 # ----------------------------------------------------------------------------- range tests
+# The *kernels* (``_<test>_kernel``) do a test's numeric work on inputs its public function
+# has validated; they check nothing. They are private by name but shared within the project:
+# :mod:`db.ingest.live_qc` validates the thresholds once per tag and calls them per batch.
+def _gross_range_kernel(x: np.ndarray, fail: tuple[float, float],
+                        suspect: tuple[float, float] | None) -> np.ndarray:
+    """Flags of :func:`gross_range_test` (QARTOD gross range); the caller validated the spans."""
+    flags = np.full(x.shape, _P, dtype=np.uint8)
+    flags[np.isnan(x)] = _M
+    if suspect is not None:
+        flags[(x < suspect[0]) | (x > suspect[1])] = _S
+    flags[(x < fail[0]) | (x > fail[1])] = _F
+    return flags
+
+
 def gross_range_test(
     values: ArrayLike, fail_span: tuple[float, float],
     suspect_span: tuple[float, float] | None = None,
@@ -207,14 +221,11 @@ def gross_range_test(
     """
     fail = _span("fail_span", fail_span)
     x = _floats(values)
-    flags = np.full(x.shape, _P, dtype=np.uint8)
-    flags[np.isnan(x)] = _M
+    suspect = None
     if suspect_span is not None:
         suspect = _span("suspect_span", suspect_span)
         _inside("gross range", suspect, fail)
-        flags[(x < suspect[0]) | (x > suspect[1])] = _S
-    flags[(x < fail[0]) | (x > fail[1])] = _F
-    return flags
+    return _gross_range_kernel(x, fail, suspect)
 
 
 @dataclass(frozen=True)
@@ -368,6 +379,22 @@ def redundant_pair_test(
 
 
 # ----------------------------------------------------------------------------- sequence tests
+def _spike_kernel(x: np.ndarray, suspect: float, fail: float) -> np.ndarray:
+    """Flags of :func:`spike_test` (QARTOD spike) of a 1-D series; the caller validated all."""
+    finite = np.isfinite(x)
+    flags = np.full(x.shape, _P, dtype=np.uint8)
+    if x.size > 2:
+        with np.errstate(invalid="ignore"):  # non-finite readings are handled below
+            diff = np.abs(x[1:-1] - (x[:-2] + x[2:]) / 2)
+        inner = flags[1:-1]
+        inner[diff > suspect] = _S
+        inner[diff > fail] = _F
+        inner[~(finite[:-2] & finite[2:])] = _N
+    flags[[0, -1] if x.size else []] = _N
+    flags[~finite] = _M
+    return flags
+
+
 def spike_test(values: ArrayLike, suspect_threshold: float, fail_threshold: float) -> np.ndarray:
     """Spike test: compare each reading with the mean of its two neighbours.
 
@@ -395,16 +422,22 @@ def spike_test(values: ArrayLike, suspect_threshold: float, fail_threshold: floa
     """
     x = _series(values)
     suspect, fail = _pair("spike", suspect_threshold, fail_threshold)
+    return _spike_kernel(x, suspect, fail)
+
+
+def _rate_of_change_kernel(t: np.ndarray, x: np.ndarray, suspect: float, fail: float
+                           ) -> np.ndarray:
+    """Flags of :func:`rate_of_change_test` (QARTOD rate of change); the caller validated all."""
     finite = np.isfinite(x)
     flags = np.full(x.shape, _P, dtype=np.uint8)
-    if x.size > 2:
+    if x.size > 1:
         with np.errstate(invalid="ignore"):  # non-finite readings are handled below
-            diff = np.abs(x[1:-1] - (x[:-2] + x[2:]) / 2)
-        inner = flags[1:-1]
-        inner[diff > suspect] = _S
-        inner[diff > fail] = _F
-        inner[~(finite[:-2] & finite[2:])] = _N
-    flags[[0, -1] if x.size else []] = _N
+            rate = np.abs(np.diff(x)) / np.diff(t)
+        later = flags[1:]
+        later[rate > suspect] = _S
+        later[rate > fail] = _F
+        later[~finite[:-1]] = _N
+    flags[:1] = _N
     flags[~finite] = _M
     return flags
 
@@ -445,18 +478,7 @@ def rate_of_change_test(
     fail = np.inf
     if fail_threshold_per_s is not None:
         suspect, fail = _pair("rate of change", suspect, fail_threshold_per_s)
-    finite = np.isfinite(x)
-    flags = np.full(x.shape, _P, dtype=np.uint8)
-    if x.size > 1:
-        with np.errstate(invalid="ignore"):  # non-finite readings are handled below
-            rate = np.abs(np.diff(x)) / np.diff(t)
-        later = flags[1:]
-        later[rate > suspect] = _S
-        later[rate > fail] = _F
-        later[~finite[:-1]] = _N
-    flags[:1] = _N
-    flags[~finite] = _M
-    return flags
+    return _rate_of_change_kernel(t, x, suspect, fail)
 
 
 class _Windows(BaseIndexer):
@@ -531,6 +553,15 @@ def flat_line_test(
 
 
 # ----------------------------------------------------------------------------- timing
+def _timing_gap_kernel(t: np.ndarray, now_s: float, max_age_s: float, max_future_s: float
+                       ) -> np.ndarray:
+    """Flags of :func:`timing_gap_test` (QARTOD timing/gap); the caller validated all."""
+    flags = np.full(t.shape, _P, dtype=np.uint8)
+    flags[(now_s - t > max_age_s) | (t - now_s > max_future_s)] = _F
+    flags[np.isnan(t)] = _M
+    return flags
+
+
 def timing_gap_test(
     times: ArrayLike, now: object, max_age_s: float, *, max_future_s: float = 60.0,
 ) -> np.ndarray:
@@ -568,10 +599,7 @@ def timing_gap_test(
     future = float(max_future_s)
     if not (np.isfinite(future) and future >= 0):
         raise ValueError(f"max_future_s must be finite and >= 0, got {max_future_s!r}")
-    flags = np.full(t.shape, _P, dtype=np.uint8)
-    flags[(now_s - t > age_limit) | (t - now_s > future)] = _F
-    flags[np.isnan(t)] = _M
-    return flags
+    return _timing_gap_kernel(t, now_s, age_limit, future)
 
 
 def feed_freshness_flag(times: ArrayLike, now: object, max_age_s: float) -> QcFlag:

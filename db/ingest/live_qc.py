@@ -58,8 +58,12 @@ from dataclasses import dataclass, field
 import numpy as np
 import pandas as pd
 
-from ops_logic.qc import (
+from ops_logic.qc import (  # the _*_kernel names: private to ops_logic.qc, shared in-project
     QcThresholds,
+    _gross_range_kernel,
+    _rate_of_change_kernel,
+    _spike_kernel,
+    _timing_gap_kernel,
     climatology_test,
     gross_range_test,
     qc_aggregate,
@@ -221,10 +225,10 @@ _MAX_EPOCH_S = 1e11
 
 def _checked(th: QcThresholds) -> dict[str, tuple]:
     """Thresholds of gross range, spike, rate of change and timing/gap that their test accepts
-    (each test is called once on a tiny series to check them): the parameters of the same test
-    without its per-call checks (:func:`_gross_range`, :func:`_spike`, :func:`_rate_of_change`,
-    :func:`_timing`). A test whose thresholds it refuses is left out (then it is called as
-    usual, and raises as usual)."""
+    (each test is called once on a tiny series to check them): the parameters of the test's
+    kernel, which skips the per-call checks (``_gross_range_kernel``, ``_spike_kernel``,
+    ``_rate_of_change_kernel``, ``_timing_gap_kernel`` of :mod:`ops_logic.qc`). A test whose
+    thresholds it refuses is left out (then it is called as usual, and raises as usual)."""
     out: dict[str, tuple] = {}
     try:
         gross_range_test(np.zeros(1), th.fail_span, th.suspect_span)
@@ -256,60 +260,6 @@ def _checked(th: QcThresholds) -> dict[str, tuple]:
         except (TypeError, ValueError):
             pass
     return out
-
-
-def _gross_range(x: np.ndarray, fail: tuple[float, float],
-                 suspect: tuple[float, float] | None) -> np.ndarray:
-    """:func:`ops_logic.qc.gross_range_test` with spans already checked (QARTOD gross range)."""
-    flags = np.full(x.shape, PASS, dtype=np.uint8)
-    flags[np.isnan(x)] = MISSING
-    if suspect is not None:
-        flags[(x < suspect[0]) | (x > suspect[1])] = SUSPECT
-    flags[(x < fail[0]) | (x > fail[1])] = FAIL
-    return flags
-
-
-def _spike(x: np.ndarray, suspect: float, fail: float) -> np.ndarray:
-    """:func:`ops_logic.qc.spike_test` with thresholds already checked (QARTOD spike)."""
-    finite = np.isfinite(x)
-    flags = np.full(x.shape, PASS, dtype=np.uint8)
-    if x.size > 2:
-        with np.errstate(invalid="ignore"):  # non-finite readings are handled below
-            diff = np.abs(x[1:-1] - (x[:-2] + x[2:]) / 2)
-        inner = flags[1:-1]
-        inner[diff > suspect] = SUSPECT
-        inner[diff > fail] = FAIL
-        inner[~(finite[:-2] & finite[2:])] = NOT_EVALUATED
-    flags[[0, -1] if x.size else []] = NOT_EVALUATED
-    flags[~finite] = MISSING
-    return flags
-
-
-def _rate_of_change(t_s: np.ndarray, x: np.ndarray, suspect: float, fail: float
-                    ) -> np.ndarray:
-    """:func:`ops_logic.qc.rate_of_change_test` with thresholds checked and times known
-    finite and strictly increasing [s] (QARTOD rate of change)."""
-    finite = np.isfinite(x)
-    flags = np.full(x.shape, PASS, dtype=np.uint8)
-    if x.size > 1:
-        with np.errstate(invalid="ignore"):  # non-finite readings are handled below
-            rate = np.abs(np.diff(x)) / np.diff(t_s)
-        later = flags[1:]
-        later[rate > suspect] = SUSPECT
-        later[rate > fail] = FAIL
-        later[~finite[:-1]] = NOT_EVALUATED
-    flags[:1] = NOT_EVALUATED
-    flags[~finite] = MISSING
-    return flags
-
-
-def _timing(t_s: np.ndarray, now_s: float, max_age_s: float, max_future_s: float
-            ) -> np.ndarray:
-    """:func:`ops_logic.qc.timing_gap_test` with limits and ``now`` checked and finite times
-    [s] (QARTOD timing/gap)."""
-    flags = np.full(t_s.shape, PASS, dtype=np.uint8)
-    flags[(now_s - t_s > max_age_s) | (t_s - now_s > max_future_s)] = FAIL
-    return flags
 
 
 def _flat_line_tail(t_s: np.ndarray, x: np.ndarray, tolerance: float, suspect_s: float,
@@ -506,13 +456,13 @@ class LiveQc:
         per = {}
         for test in state.tests:  # the tests run_qc_tests would run, called directly
             if test == "gross_range":
-                per[test] = (_gross_range(tail_x, *checked[test]) if test in checked
+                per[test] = (_gross_range_kernel(tail_x, *checked[test]) if test in checked
                              else gross_range_test(tail_x, th.fail_span, th.suspect_span))
             elif test == "rate_of_change" and plain_times and test in checked:
-                per[test] = _rate_of_change(t_s, tail_x, *checked[test])
+                per[test] = _rate_of_change_kernel(t_s, tail_x, *checked[test])
             elif test == "spike":
                 assert th.spike_suspect is not None and th.spike_fail is not None
-                per[test] = (_spike(tail_x, *checked[test]) if test in checked
+                per[test] = (_spike_kernel(tail_x, *checked[test]) if test in checked
                              else spike_test(tail_x, th.spike_suspect, th.spike_fail))
             elif test == "climatology":
                 per[test] = climatology_test(t_s, tail_x, th.seasonal_ranges, tz=self.tz,
@@ -532,7 +482,7 @@ class LiveQc:
         if now_s is not None and th.max_age_s is not None and timed.any():
             if (plain_times and "timing_gap" in checked
                     and self._now_checked(now_s) is not None):
-                timing = _timing(ms / 1000.0, float(now_s), *checked["timing_gap"])
+                timing = _timing_gap_kernel(ms / 1000.0, float(now_s), *checked["timing_gap"])
             else:
                 timing = timing_gap_test(ms / 1000.0, now_s, th.max_age_s,
                                          max_future_s=th.max_future_s)

@@ -9,7 +9,9 @@ References:
   tests/ops_logic/test_qc.py) for random series split into random batches, with missing
   readings and climatology (hypothesis);
 - the redundant pair test against ``ioos_qc.qartod.gross_range_test(a − b, ...)``, the
-  equivalence stated in ``ops_logic.qc.redundant_pair_test``.
+  equivalence stated in ``ops_logic.qc.redundant_pair_test``;
+- the public ``ops_logic.qc`` tests (gross range, spike, rate of change, timing/gap) for the
+  kernels the live path calls with the thresholds ``_checked`` validated once per tag.
 """
 from __future__ import annotations
 
@@ -23,8 +25,21 @@ from hypothesis import given, settings
 from hypothesis import strategies as st
 from ioos_qc import qartod as iq
 
-from db.ingest.live_qc import LiveQc, TrailingWindow
-from ops_logic.qc import QcThresholds, SeasonalRange, default_thresholds, run_qc
+from db.ingest.live_qc import LiveQc, TrailingWindow, _checked
+from ops_logic.qc import (  # the private kernels, as db.ingest.live_qc imports them
+    QcThresholds,
+    SeasonalRange,
+    _gross_range_kernel,
+    _rate_of_change_kernel,
+    _spike_kernel,
+    _timing_gap_kernel,
+    default_thresholds,
+    gross_range_test,
+    rate_of_change_test,
+    run_qc,
+    spike_test,
+    timing_gap_test,
+)
 
 P, N, S, F, M = 1, 2, 3, 4, 9
 T0_MS = 1_780_000_000_000  # 2026-05-28T20:26:40Z, whole seconds
@@ -125,6 +140,65 @@ def test_any_batching_gives_the_whole_series_flags(th, s, tz):
     ours = feed(one_tag(th, tz), "g", ms, x, splits)
     whole = run_qc(ms / 1000.0, x, replace(th, max_age_s=None), tz=tz)
     np.testing.assert_array_equal(ours, whole)
+
+
+# Quarter steps are exact binary fractions, so random draws hit thresholds exactly.
+quarters = st.integers(-40, 40).map(lambda k: k / 4)
+positive_quarters = st.integers(1, 40).map(lambda k: k / 4)
+
+
+@st.composite
+def small_test_thresholds(draw):
+    lo, hi = sorted(draw(st.lists(quarters, min_size=2, max_size=2, unique=True)))
+    suspect_span = None
+    if draw(st.booleans()):
+        suspect_span = tuple(sorted(draw(st.lists(
+            quarters.filter(lambda v: lo <= v <= hi), min_size=2, max_size=2, unique=True))))
+    spike = sorted(draw(st.lists(positive_quarters, min_size=2, max_size=2)))
+    rate = sorted(draw(st.lists(positive_quarters, min_size=2, max_size=2)))
+    rate_fail = rate[1] if draw(st.booleans()) else None
+    return QcThresholds("water_level", "m", fail_span=(lo, hi), suspect_span=suspect_span,
+                        spike_suspect=spike[0], spike_fail=spike[1],
+                        rate_suspect_per_s=rate[0], rate_fail_per_s=rate_fail,
+                        max_age_s=draw(positive_quarters) * 10,
+                        max_future_s=draw(st.integers(0, 40)) / 4)
+
+
+@st.composite
+def live_series(draw):
+    n = draw(st.integers(0, 40))
+    x = np.array(draw(st.lists(st.one_of(quarters, quarters, quarters, st.just(math.nan),
+                                         st.just(math.inf), st.just(-math.inf)),
+                               min_size=n, max_size=n)), dtype=np.float64)
+    steps = draw(st.lists(st.integers(1, 30_000), min_size=n, max_size=n))
+    ms = T0_MS + np.cumsum(np.array(steps, dtype=np.int64))
+    return ms, x
+
+
+@settings(max_examples=150, deadline=None)
+@given(th=small_test_thresholds(), s=live_series(), late_s=st.integers(-200, 200))
+def test_kernels_with_checked_thresholds_give_the_public_flags(th, s, late_s):
+    # reference: the public tests of ops_logic.qc (checked against ioos_qc.qartod in
+    # tests/ops_logic/test_qc.py), called with the thresholds as configured; the live path
+    # calls their kernels with the parameters _checked validated once per tag
+    ms, x = s
+    t_s = ms / 1000.0
+    now_s = (t_s[-1] if ms.size else T0_MS / 1000.0) + late_s / 4
+    checked = _checked(th)
+    assert set(checked) == {"gross_range", "spike", "rate_of_change", "timing_gap"}
+    pairs = [
+        (_gross_range_kernel(x, *checked["gross_range"]),
+         gross_range_test(x, th.fail_span, th.suspect_span)),
+        (_spike_kernel(x, *checked["spike"]),
+         spike_test(x, th.spike_suspect, th.spike_fail)),
+        (_rate_of_change_kernel(t_s, x, *checked["rate_of_change"]),
+         rate_of_change_test(t_s, x, th.rate_suspect_per_s, th.rate_fail_per_s)),
+        (_timing_gap_kernel(t_s, now_s, *checked["timing_gap"]),
+         timing_gap_test(t_s, now_s, th.max_age_s, max_future_s=th.max_future_s)),
+    ]
+    for kernel, public in pairs:
+        assert kernel.dtype == public.dtype == np.uint8
+        np.testing.assert_array_equal(kernel, public)
 
 
 def test_window_keeps_the_flat_line_span_and_its_anchor():
