@@ -59,6 +59,7 @@ import pandas as pd
 import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 
+from db.history import finite_or_none, insert_row, rows_frame, ts_between, ts_frame
 from db.models import Base, Fishway, OperatorLogEntry, Recommendation, Site, User
 from db.types import UTCDateTime, ms_to_datetime, ms_to_index, to_epoch_ms, to_utc
 
@@ -178,11 +179,8 @@ def log_entries(engine: Engine, *, start: datetime | None = None, end: datetime 
     if not 1 <= int(limit) <= 10_000:
         raise ValueError("limit must be 1–10000 entries")
     t = OperatorLogEntry.__table__
-    stmt = sa.select(t.c.ts, *(t.c[c] for c in _LOG_COLUMNS))
-    if start is not None:
-        stmt = stmt.where(t.c.ts >= to_utc(start))
-    if end is not None:
-        stmt = stmt.where(t.c.ts < to_utc(end))
+    stmt = sa.select(t.c.ts, *(t.c[c] for c in _LOG_COLUMNS)).where(
+        *ts_between(t.c.ts, start, end))
     if fishway_id is not None:
         stmt = stmt.where(t.c.fishway_id == int(fishway_id))
     if kinds:
@@ -191,23 +189,14 @@ def log_entries(engine: Engine, *, start: datetime | None = None, end: datetime 
         stmt = stmt.where(t.c.author == author)
     if text:
         stmt = stmt.where(sa.func.lower(t.c.text).like(_like_literal(text), escape="\\"))
-    stmt = stmt.order_by(t.c.ts.desc(), t.c.id.desc()).limit(int(limit))
-    with engine.connect() as conn:
-        result = conn.execute(stmt)
-        frame = pd.DataFrame(result.all(), columns=list(result.keys()))
-    if frame.empty:
-        frame = frame.astype({"ts": "datetime64[us, UTC]"})
-    frame["ts"] = pd.to_datetime(frame["ts"], utc=True)
-    return frame.set_index("ts")
+    return ts_frame(engine, stmt.order_by(t.c.ts.desc(), t.c.id.desc()).limit(int(limit)))
 
 
 def log_entry(engine: Engine, entry_id: int) -> dict | None:
     """One operator log entry as a dict (``ts`` and the columns of :func:`log_entries`)."""
     t = OperatorLogEntry.__table__
-    stmt = sa.select(t.c.ts, *(t.c[c] for c in _LOG_COLUMNS)).where(t.c.id == int(entry_id))
-    with engine.connect() as conn:
-        row = conn.execute(stmt).mappings().first()
-    return dict(row) if row is not None else None
+    return _one(engine, sa.select(t.c.ts, *(t.c[c] for c in _LOG_COLUMNS))
+                .where(t.c.id == int(entry_id)))
 
 
 def corrections_of(engine: Engine, entry_ids: Iterable[int]) -> dict[int, list[int]]:
@@ -269,15 +258,6 @@ __all__ += ["QARTOD_FLAG_NAMES", "SETTING_ACTIONS", "SETTING_CHANGES", "alarm_co
             "setting_overrides", "users_frame"]
 
 
-def _finite_or_none(name: str, value: float | None) -> float | None:
-    if value is None:
-        return None
-    value = float(value)
-    if not np.isfinite(value):
-        raise ValueError(f"{name} must be finite")
-    return value
-
-
 def record_setting_change(engine: Engine, fishway_id: int, key: str, ts: datetime, *,
                           action: str, set_by: str, old_value: float | None = None,
                           new_value: float | None = None, old_text: str | None = None,
@@ -293,12 +273,10 @@ def record_setting_change(engine: Engine, fishway_id: int, key: str, ts: datetim
     if action == "set" and new_value is None and new_text is None:
         raise ValueError("a set needs the new value")
     values = {"ts": to_utc(ts), "fishway_id": int(fishway_id), "key": key, "action": action,
-              "old_value": _finite_or_none("old_value", old_value),
-              "new_value": _finite_or_none("new_value", new_value), "old_text": old_text,
+              "old_value": finite_or_none("old_value", old_value),
+              "new_value": finite_or_none("new_value", new_value), "old_text": old_text,
               "new_text": new_text, "set_by": set_by, "note": note}
-    with engine.begin() as conn:
-        return int(conn.execute(sa.insert(SETTING_CHANGES).values(**values))
-                   .inserted_primary_key[0])
+    return insert_row(engine, SETTING_CHANGES, values)
 
 
 def setting_changes_frame(engine: Engine, fishway_id: int | None = None,
@@ -308,13 +286,7 @@ def setting_changes_frame(engine: Engine, fishway_id: int | None = None,
     stmt = sa.select(t).order_by(t.c.id.desc()).limit(int(limit))
     if fishway_id is not None:
         stmt = stmt.where(t.c.fishway_id == int(fishway_id))
-    with engine.connect() as conn:
-        result = conn.execute(stmt)
-        frame = pd.DataFrame(result.all(), columns=list(result.keys()))
-    if frame.empty:
-        frame = frame.astype({"ts": "datetime64[us, UTC]"})
-    frame["ts"] = pd.to_datetime(frame["ts"], utc=True)
-    return frame.set_index("ts")
+    return ts_frame(engine, stmt)
 
 
 _OVERRIDES_SQL = sa.text(
@@ -362,9 +334,7 @@ def users_frame(engine: Engine) -> pd.DataFrame:
     """Every account (no password hashes), index ``name``."""
     t = User.__table__
     stmt = sa.select(t.c.name, t.c.id, t.c.role, t.c.created_at, t.c.active).order_by(t.c.name)
-    with engine.connect() as conn:
-        result = conn.execute(stmt)
-        frame = pd.DataFrame(result.all(), columns=list(result.keys()))
+    frame = rows_frame(engine, stmt)
     frame["created_at"] = pd.to_datetime(frame["created_at"], utc=True)
     return frame.set_index("name")
 

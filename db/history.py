@@ -23,6 +23,15 @@ Reading (DataFrames indexed by ``ts``, tz-aware UTC, ascending; ``[start, end)``
 ``latest_actuator_settings(engine, fishway_id)`` (index ``actuator``: the newest setting
 of each), ``operator_log_frame(engine, start, end, fishway_id=None)``.
 
+Helpers (shared with :mod:`db.dashboard_queries`)
+-------
+``rows_frame(engine, stmt)`` — the rows of a select as a DataFrame (the select's columns);
+``ts_frame(engine, stmt)`` — the same indexed by its ``ts`` column, tz-aware UTC (an empty
+result too); ``ts_between(column, start=None, end=None)`` — the conditions
+``start <= column < end`` (a bound given as None is left open);
+``finite_or_none(name, value)`` — a float, None kept, ValueError for NaN or ±inf;
+``insert_row(engine, table, values)`` — insert one row, return its primary key.
+
 >>> from datetime import datetime, timezone
 >>> from db.engine import make_engine
 >>> from db.migrate import upgrade
@@ -56,11 +65,16 @@ __all__ = [
     "ACTUATOR_SOURCES",
     "actuator_settings_frame",
     "add_log_entry",
+    "finite_or_none",
+    "insert_row",
     "latest_actuator_settings",
     "operator_log_frame",
     "recommendations_frame",
     "record_actuator_setting",
     "record_recommendation",
+    "rows_frame",
+    "ts_between",
+    "ts_frame",
 ]
 
 #: Where an actuator setting came from.
@@ -77,12 +91,22 @@ def _json_payload(name: str, payload: dict) -> dict:
     return payload
 
 
-def _insert(engine: Engine, table: sa.Table, values: dict) -> int:
+def insert_row(engine: Engine, table: sa.Table, values: dict) -> int:
+    """Insert one row of ``values`` into ``table`` (its own transaction); return the new
+    row's primary key."""
     with engine.begin() as conn:
         return int(conn.execute(sa.insert(table).values(**values)).inserted_primary_key[0])
 
 
-def _finite(name: str, value: float | None) -> float | None:
+def finite_or_none(name: str, value: float | None) -> float | None:
+    """``value`` as a float (None stays None); ValueError naming ``name`` for NaN or ±inf.
+
+    >>> finite_or_none("to_value", 2), finite_or_none("to_value", None)
+    (2.0, None)
+    >>> finite_or_none("to_value", float("nan"))
+    Traceback (most recent call last):
+    ValueError: to_value must be finite
+    """
     if value is None:
         return None
     value = float(value)
@@ -95,7 +119,7 @@ def record_recommendation(engine: Engine, fishway_id: int, ts: datetime, *, inpu
                           settings: dict, predicted: dict, binding_constraint: str | None,
                           feasible: bool, reason: str = "") -> int:
     """Store one recommendation; return its id."""
-    return _insert(engine, Recommendation.__table__, {
+    return insert_row(engine, Recommendation.__table__, {
         "ts": to_utc(ts), "fishway_id": fishway_id, "inputs": _json_payload("inputs", inputs),
         "settings": _json_payload("settings", settings),
         "predicted": _json_payload("predicted", predicted),
@@ -111,9 +135,9 @@ def record_actuator_setting(engine: Engine, fishway_id: int, ts: datetime, actua
         raise ValueError(f"unknown source {source!r}; known: {ACTUATOR_SOURCES}")
     if not actuator or not set_by:
         raise ValueError("an actuator setting needs the actuator and who set it")
-    return _insert(engine, ActuatorSetting.__table__, {
+    return insert_row(engine, ActuatorSetting.__table__, {
         "ts": to_utc(ts), "fishway_id": fishway_id, "actuator": actuator,
-        "value": _finite("value", value), "unit": unit, "set_by": set_by, "source": source,
+        "value": finite_or_none("value", value), "unit": unit, "set_by": set_by, "source": source,
         "recommendation_id": recommendation_id, "note": note,
     })
 
@@ -131,28 +155,49 @@ def add_log_entry(engine: Engine, ts: datetime, author: str, kind: str, *, text:
         raise ValueError("an adjustment names the actuator and the value it was set to")
     if not author:
         raise ValueError("a log entry needs an author")
-    return _insert(engine, OperatorLogEntry.__table__, {
+    return insert_row(engine, OperatorLogEntry.__table__, {
         "ts": to_utc(ts), "author": author, "kind": kind, "text": text,
         "fishway_id": fishway_id, "actuator": actuator,
-        "from_value": _finite("from_value", from_value), "to_value": _finite("to_value", to_value),
+        "from_value": finite_or_none("from_value", from_value),
+        "to_value": finite_or_none("to_value", to_value),
         "refers_to": refers_to,
     })
 
 
-def _frame(engine: Engine, stmt) -> pd.DataFrame:
+def rows_frame(engine: Engine, stmt: sa.Select) -> pd.DataFrame:
+    """The rows of ``stmt`` as a DataFrame with the select's column names (default index)."""
     with engine.connect() as conn:
         result = conn.execute(stmt)
-        frame = pd.DataFrame(result.all(), columns=list(result.keys()))
+        return pd.DataFrame(result.all(), columns=list(result.keys()))
+
+
+def ts_frame(engine: Engine, stmt: sa.Select) -> pd.DataFrame:
+    """The rows of ``stmt`` indexed by its ``ts`` column as tz-aware UTC timestamps, in the
+    select's order; an empty result has the same index type."""
+    frame = rows_frame(engine, stmt)
     if frame.empty:
         frame = frame.astype({"ts": "datetime64[us, UTC]"})
     frame["ts"] = pd.to_datetime(frame["ts"], utc=True)
     return frame.set_index("ts")
 
 
-def _range(table: sa.Table, start: datetime, end: datetime):
+def ts_between(column: sa.ColumnElement, start: datetime | None = None,
+               end: datetime | None = None) -> list[sa.ColumnElement[bool]]:
+    """The conditions ``start <= column < end`` for ``select.where(*...)``, bounds as UTC; a
+    bound given as None is left open (no condition). Nothing checks the order of the bounds
+    (an end before the start matches no row)."""
+    out = []
+    if start is not None:
+        out.append(column >= to_utc(start))
+    if end is not None:
+        out.append(column < to_utc(end))
+    return out
+
+
+def _range(table: sa.Table, start: datetime, end: datetime) -> sa.ColumnElement[bool]:
     if to_utc(end) <= to_utc(start):
         raise ValueError("end must be after start")
-    return sa.and_(table.c.ts >= to_utc(start), table.c.ts < to_utc(end))
+    return sa.and_(*ts_between(table.c.ts, start, end))
 
 
 def recommendations_frame(engine: Engine, fishway_id: int, start: datetime,
@@ -163,7 +208,7 @@ def recommendations_frame(engine: Engine, fishway_id: int, start: datetime,
     stmt = (sa.select(t.c.ts, t.c.id, t.c.inputs, t.c.settings, t.c.predicted,
                       t.c.binding_constraint, t.c.feasible, t.c.reason)
             .where(t.c.fishway_id == fishway_id, _range(t, start, end)).order_by(t.c.ts, t.c.id))
-    return _frame(engine, stmt)
+    return ts_frame(engine, stmt)
 
 
 def actuator_settings_frame(engine: Engine, fishway_id: int, start: datetime, end: datetime,
@@ -176,7 +221,7 @@ def actuator_settings_frame(engine: Engine, fishway_id: int, start: datetime, en
             .where(t.c.fishway_id == fishway_id, _range(t, start, end)).order_by(t.c.ts, t.c.id))
     if actuator is not None:
         stmt = stmt.where(t.c.actuator == actuator)
-    return _frame(engine, stmt)
+    return ts_frame(engine, stmt)
 
 
 def latest_actuator_settings(engine: Engine, fishway_id: int) -> pd.DataFrame:
@@ -190,10 +235,7 @@ def latest_actuator_settings(engine: Engine, fishway_id: int) -> pd.DataFrame:
     stmt = (sa.select(t.c.actuator, t.c.id, t.c.ts, t.c.value, t.c.unit, t.c.set_by, t.c.source)
             .where(t.c.fishway_id == fishway_id, t.c.ts == newest_ts)
             .order_by(t.c.actuator, t.c.id))
-    with engine.connect() as conn:
-        result = conn.execute(stmt)
-        frame = pd.DataFrame(result.all(), columns=list(result.keys()))
-    frame = frame.drop_duplicates("actuator", keep="last").drop(columns="id")
+    frame = rows_frame(engine, stmt).drop_duplicates("actuator", keep="last").drop(columns="id")
     frame["ts"] = pd.to_datetime(frame["ts"], utc=True)
     return frame.set_index("actuator")
 
@@ -208,4 +250,4 @@ def operator_log_frame(engine: Engine, start: datetime, end: datetime,
             .where(_range(t, start, end)).order_by(t.c.ts, t.c.id))
     if fishway_id is not None:
         stmt = stmt.where(t.c.fishway_id == fishway_id)
-    return _frame(engine, stmt)
+    return ts_frame(engine, stmt)

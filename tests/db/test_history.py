@@ -1,7 +1,9 @@
-"""Recommendations, actuator settings and operator log (db/history.py), both engines.
+"""Recommendations, actuator settings and operator log (db/history.py), both engines, and
+the frame and time-range helpers it shares with db/dashboard_queries.py.
 
 Storage round trips: the reference is the data written; JSON payloads are compared with
-Python's ``json`` round trip (RFC 8259 numbers).
+Python's ``json`` round trip (RFC 8259 numbers); NaN and infinities as IEEE 754 defines them
+(``math.isfinite``).
 """
 from __future__ import annotations
 
@@ -16,12 +18,18 @@ from db.catalog import add_fishway, add_site
 from db.history import (
     actuator_settings_frame,
     add_log_entry,
+    finite_or_none,
+    insert_row,
     latest_actuator_settings,
     operator_log_frame,
     recommendations_frame,
     record_actuator_setting,
     record_recommendation,
+    rows_frame,
+    ts_between,
+    ts_frame,
 )
+from db.models import OperatorLogEntry
 
 T = datetime(2026, 8, 3, 6, 0, tzinfo=UTC)
 DAY = timedelta(days=1)
@@ -117,3 +125,70 @@ def test_operator_log_validation(db_engine, kwargs):
 def test_naive_times_are_refused(db_engine, fishway):
     with pytest.raises(ValueError, match="naive"):
         add_log_entry(db_engine, datetime(2026, 8, 3), "op1", "observation")
+
+
+# -- helpers shared with db/dashboard_queries.py -------------------------------------------
+HOUR = timedelta(hours=1)
+
+
+@pytest.fixture
+def three_entries(db_engine, fishway):
+    """Log entries at T, T + 1 h, T + 2 h (ids in that order)."""
+    return [add_log_entry(db_engine, T + i * HOUR, "op1", "observation", text=f"n{i}",
+                          fishway_id=fishway) for i in range(3)]
+
+
+@pytest.mark.parametrize(("start", "end", "picked"), [
+    (None, None, [0, 1, 2]),
+    (T + HOUR, None, [1, 2]),  # the start is inside: [start, …
+    (None, T + HOUR, [0]),  # … end) is outside
+    (T + HOUR, T + 2 * HOUR, [1]),
+    (T + 2 * HOUR, T, []),  # an end before the start matches nothing (no check here)
+])
+def test_ts_between_is_start_inclusive_end_exclusive_with_open_bounds(db_engine, three_entries,
+                                                                      start, end, picked):
+    t = OperatorLogEntry.__table__
+    stmt = sa.select(t.c.ts, t.c.id).where(*ts_between(t.c.ts, start, end)).order_by(t.c.id)
+    frame = ts_frame(db_engine, stmt)
+    assert frame["id"].tolist() == [three_entries[i] for i in picked]
+    assert list(frame.index) == [pd.Timestamp(T + i * HOUR) for i in picked]
+
+
+def test_ts_frame_index_is_utc_in_select_order_empty_or_not(db_engine, three_entries):
+    t = OperatorLogEntry.__table__
+    newest_first = sa.select(t.c.ts, t.c.text).order_by(t.c.ts.desc())
+    frame = ts_frame(db_engine, newest_first)
+    assert frame.index.name == "ts" and str(frame.index.tz) == "UTC"
+    assert frame["text"].tolist() == ["n2", "n1", "n0"]
+    empty = ts_frame(db_engine, newest_first.where(t.c.ts > T + DAY))
+    assert empty.empty and list(empty.columns) == ["text"]
+    assert isinstance(empty.index, pd.DatetimeIndex) and str(empty.index.tz) == "UTC"
+
+
+def test_rows_frame_keeps_the_select_columns(db_engine, three_entries):
+    t = OperatorLogEntry.__table__
+    frame = rows_frame(db_engine, sa.select(t.c.id, t.c.author).order_by(t.c.id))
+    assert list(frame.columns) == ["id", "author"] and frame["id"].tolist() == three_entries
+    assert frame.index.tolist() == [0, 1, 2]
+    assert list(rows_frame(db_engine, sa.select(t.c.id).where(t.c.id < 0)).columns) == ["id"]
+
+
+def test_insert_row_returns_the_new_key(db_engine, fishway, three_entries):
+    new = insert_row(db_engine, OperatorLogEntry.__table__,
+                     {"ts": T, "author": "op2", "kind": "shift_note", "text": "direct"})
+    assert new == three_entries[-1] + 1
+    log = operator_log_frame(db_engine, T, T + DAY)
+    assert log.set_index("id").loc[new, "author"] == "op2"
+
+
+@pytest.mark.parametrize(("value", "want"), [(None, None), (2, 2.0), (-0.5, -0.5),
+                                             ("1.25", 1.25), (1e308, 1e308)])
+def test_finite_or_none_keeps_finite_values(value, want):
+    got = finite_or_none("x", value)
+    assert got == want and (got is None or type(got) is float)
+
+
+@pytest.mark.parametrize("value", [float("nan"), float("inf"), float("-inf")])
+def test_finite_or_none_refuses_nan_and_infinities(value):
+    with pytest.raises(ValueError, match=r"^to_value must be finite$"):
+        finite_or_none("to_value", value)
