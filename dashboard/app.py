@@ -88,5 +88,5 @@ def create_app(site: Site, engine: Engine, *, secret_key: str | None = None,
     # Claim the pages' callbacks now: Dash hands its global callback list to whichever app
     # serves a request first, which goes wrong when a process builds more than one app.
     with server.test_request_context("/"):
-        app._setup_server()  # noqa: SLF001 - Dash does this on the first request
+        app._setup_server()  # Dash does this on the first request
     return app

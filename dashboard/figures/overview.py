@@ -11,8 +11,8 @@ alarm colours by priority.
 
 The page's components carry pattern ids ``{"type": ..., "key": "<fishway>.<item>"}``;
 :func:`panel_values`, :func:`summary_values` and :func:`wall_values` give, per key, the text
-and CSS class (every text item has both) and the style patches of one refresh, so a refresh
-sends only those small properties.
+and CSS class (every text item has both) and the bullet styles (a few properties each) of one
+refresh, so a refresh sends only those small properties.
 
 >>> b = bullet_geometry(0.4, 0.3048, 0.4572, 0.381)
 >>> round(b.band_left_pct, 1), round(b.band_width_pct, 1), round(b.value_pct, 1)
@@ -26,12 +26,12 @@ True
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
+import threading
+from collections import OrderedDict
 from datetime import datetime
-from typing import Any
+from typing import Any, NamedTuple
 
 import plotly.graph_objects as go
-from dash import Patch
 
 from dashboard.services.overview import (
     PRIORITIES,
@@ -40,14 +40,17 @@ from dashboard.services.overview import (
     Snapshot,
     age_text,
 )
-from dashboard.services.site import display_number, format_value, unit_label
+from db.status.model import metric_band_text
+from ops_logic.display import display_number, unit_label
 
 __all__ = [
     "SPARK_POINTS",
     "Bullet",
     "bullet_geometry",
+    "clear_outputs",
     "metric_band_text",
     "panel_values",
+    "refresh_outputs",
     "spark_extension",
     "sparkline_figure",
     "state_class",
@@ -59,8 +62,7 @@ SPARK_POINTS = 360
 """Points kept in a sparkline trace: six hours of one-minute rollups."""
 
 
-@dataclass(frozen=True)
-class Bullet:
+class Bullet(NamedTuple):
     """Positions on the track, in percent of its width (None: not drawn)."""
 
     band_left_pct: float | None
@@ -89,37 +91,17 @@ def bullet_geometry(value: float | None, lo: float | None, hi: float | None,
     scale = _scale(lo, hi)
     if scale is None:
         return None
-    a, b = scale
-
-    def pct(x: float) -> float:
-        return 100.0 * (x - a) / (b - a)
-
-    left = pct(lo) if lo is not None else 0.0
-    right = pct(hi) if hi is not None else 100.0
+    a, w = scale[0], 0.01 * (scale[1] - scale[0])  # percent of the track: (x - a) / w
+    left = (lo - a) / w if lo is not None else 0.0
+    right = (hi - a) / w if hi is not None else 100.0
     v = None
     off = False
     if value is not None and math.isfinite(value):
-        raw = pct(value)
+        raw = (value - a) / w
         off = raw < 0.0 or raw > 100.0
         v = min(max(raw, 0.0), 100.0)
-    t = pct(target) if target is not None else None
+    t = (target - a) / w if target is not None else None
     return Bullet(left, right - left, t, v, off)
-
-
-def metric_band_text(m: Metric, units: str) -> str:
-    """The band of a metric in display units (``'band 1.00–1.50 ft, target 1.25'``)."""
-    if m.lo is None and m.hi is None:
-        return "no target band"
-    fv = format_value
-    if m.lo is not None and m.hi is not None:
-        text = f"band {fv(m.lo, m.kind, units, unit=False)}–{fv(m.hi, m.kind, units)}"
-    elif m.hi is not None:
-        text = f"max {fv(m.hi, m.kind, units)}"
-    else:
-        text = f"min {fv(m.lo, m.kind, units)}"
-    if m.target is not None:
-        text += f", target {fv(m.target, m.kind, units, unit=False)}"
-    return text
 
 
 def state_class(status: FishwayStatus) -> str:
@@ -134,25 +116,22 @@ def _row_class(m: Metric) -> str:
     return f"ov-metric is-{m.status}" + (" no-band" if m.lo is None and m.hi is None else "")
 
 
-def _style(b: Bullet | None, part: str) -> Patch:
-    p = Patch()
+_HIDDEN = {"display": "none"}
+
+
+def _styles(b: Bullet | None) -> tuple[dict, dict, dict]:
+    """The styles of a bullet's band, target tick and marker: small dicts of the few
+    properties a bullet sets (the rest is the CSS classes'), hidden when not drawn."""
     if b is None:
-        p["display"] = "none"
-        return p
-    p["display"] = "block"
-    if part == "band":
-        p["left"], p["width"] = f"{b.band_left_pct:.2f}%", f"{b.band_width_pct:.2f}%"
-    elif part == "target":
-        if b.target_pct is None:
-            p["display"] = "none"
-        else:
-            p["left"] = f"{b.target_pct:.2f}%"
-    elif b.value_pct is None:
-        p["display"] = "none"
-    else:
-        p["left"] = f"{b.value_pct:.2f}%"
-        p["outline"] = "3px solid var(--abnormal)" if b.off_scale else "none"
-    return p
+        return _HIDDEN, _HIDDEN, _HIDDEN
+    band = {"display": "block", "left": f"{b.band_left_pct:.2f}%",
+            "width": f"{b.band_width_pct:.2f}%"}
+    target = _HIDDEN if b.target_pct is None else {"display": "block",
+                                                    "left": f"{b.target_pct:.2f}%"}
+    marker = _HIDDEN if b.value_pct is None else {
+        "display": "block", "left": f"{b.value_pct:.2f}%",
+        "outline": "3px solid var(--abnormal)" if b.off_scale else "none"}
+    return band, target, marker
 
 
 def _alarm_items(counts: dict[str, int] | None, prefix: str, texts: dict, classes: dict,
@@ -178,34 +157,45 @@ def _alarm_items(counts: dict[str, int] | None, prefix: str, texts: dict, classe
             "ov-alarm is-zero"
 
 
-def panel_values(status: FishwayStatus, units: str) -> tuple[dict, dict, dict]:
-    """Texts, classes and style patches by key for one fishway's overview panel."""
+_ids: dict[tuple[str, str], tuple[str, ...]] = {}
+
+
+def _metric_ids(fid: str, key: str) -> tuple[str, ...]:
+    """The item, row and style keys of one metric of a panel (made once)."""
+    hit = _ids.get((fid, key))
+    if hit is None:
+        k = f"{fid}.{key}"
+        hit = _ids[(fid, key)] = (f"{k}.value", f"{k}.band", f"{k}.note", f"{k}.row",
+                                  f"{k}.band", f"{k}.target", f"{k}.marker")
+    return hit
+
+
+def panel_values(status: FishwayStatus) -> tuple[dict, dict, dict]:
+    """Texts, classes and bullet styles by key for one fishway's overview panel."""
     fid = status.id
     texts: dict[str, Any] = {}
     classes: dict[str, str] = {}
-    styles: dict[str, Patch] = {}
+    styles: dict[str, dict] = {}
     texts[f"{fid}.state"] = status.state_label
     classes[f"{fid}.state"] = state_class(status)
     texts[f"{fid}.reason"] = status.reason
     classes[f"{fid}.reason"] = "ov-reason"
-    age = age_text(status.age_s)
-    texts[f"{fid}.age"] = (f"STALE: data {age} old" if status.stale and status.age_s is not None
-                           else "no current readings" if status.age_s is None
-                           else f"data {age} old")
+    texts[f"{fid}.age"] = _age_text(status)
     classes[f"{fid}.age"] = "ov-age is-stale" if status.stale else "ov-age"
     for m in status.metrics:
-        k = f"{fid}.{m.key}"
-        texts[f"{k}.value"] = format_value(m.value, m.kind, units)
-        texts[f"{k}.band"] = metric_band_text(m, units)
+        value, band, note_key, row, band_style, target, marker = _metric_ids(fid, m.key)
+        texts[value] = m.text  # formatted when the status was judged
+        texts[band] = m.band_text
         note = m.note
-        if m.source and m.source not in ("gauge",):
+        if m.source and m.source != "gauge":
             note = f"{note} · {m.source}" if note else m.source
-        texts[f"{k}.note"] = note
-        classes.update({f"{k}.value": "ov-value", f"{k}.band": "ov-bandtext",
-                        f"{k}.note": "ov-note", f"{k}.row": _row_class(m)})
-        b = bullet_geometry(m.value, m.lo, m.hi, m.target)
-        for part in ("band", "target", "marker"):
-            styles[f"{k}.{part}"] = _style(b, part)
+        texts[note_key] = note
+        classes[value] = "ov-value"
+        classes[band] = "ov-bandtext"
+        classes[note_key] = "ov-note"
+        classes[row] = _row_class(m)
+        styles[band_style], styles[target], styles[marker] = _styles(
+            bullet_geometry(m.value, m.lo, m.hi, m.target))
     _alarm_items(status.alarms, fid, texts, classes)
     adj = status.adjustment
     texts[f"{fid}.adjust"] = adj.text
@@ -222,13 +212,89 @@ def summary_values(snap: Snapshot) -> tuple[dict, dict]:
     """Texts and classes of the site summary line above the panels."""
     texts: dict[str, Any] = {}
     classes: dict[str, str] = {}
-    local = snap.now.astimezone(_zone(snap.time_zone))
-    texts["site.time"] = f"as of {local:%Y-%m-%d %H:%M:%S} ({snap.time_zone})"
+    texts["site.time"] = _time_text(snap)
     classes["site.time"] = "ov-time"
     _alarm_items(snap.site_alarms, "site", texts, classes)
     texts["site.problems"] = "; ".join(snap.problems)
     classes["site.problems"] = "ov-problems" if snap.problems else "ov-problems is-empty"
     return texts, classes
+
+
+def _age_text(status: FishwayStatus) -> str:
+    age = age_text(status.age_s)
+    return (f"STALE: data {age} old" if status.stale and status.age_s is not None
+            else "no current readings" if status.age_s is None else f"data {age} old")
+
+
+def _time_text(snap: Snapshot) -> str:
+    local = snap.now.astimezone(_zone(snap.time_zone))
+    return f"as of {local:%Y-%m-%d %H:%M:%S} ({snap.time_zone})"
+
+
+def _counts_key(counts: dict[str, int] | None) -> tuple | None:
+    return None if counts is None else tuple(counts.items())
+
+
+class _Outputs(NamedTuple):
+    texts: list
+    classes: list
+    rows: list
+    styles: list
+    live: tuple[tuple[int, str | None], ...]  # (index in texts, fishway id or None: site time)
+
+
+_outputs: OrderedDict[tuple, _Outputs] = OrderedDict()
+_outputs_lock = threading.Lock()
+_OUTPUTS_KEPT = 16
+
+
+def refresh_outputs(snap: Snapshot, item_keys: tuple[str, ...], row_keys: list[str],
+                    style_keys: list[str], missing_style: Any = None
+                    ) -> tuple[list, list, list, list]:
+    """The overview refresh's four output lists (texts and classes of the items, classes of
+    the metric rows, bullet styles; ``missing_style`` for a style key without a value) in the
+    order of the given keys.
+
+    A stored status is read by every viewer until the ingest's next cycle, so the lists are
+    kept per content (the statuses' judging times and states, alarm counts, problems, the
+    layout's keys) and only the texts that change with the clock alone (the data's age, the
+    time of the page) are renewed on the copies."""
+    key = (item_keys, snap.units, snap.problems, _counts_key(snap.site_alarms),
+           tuple((s.id, s.computed_ms, s.state, s.stale, s.age_s is None,
+                  _counts_key(s.alarms)) for s in snap.fishways))
+    with _outputs_lock:
+        hit = _outputs.get(key)
+    if hit is None:
+        texts, classes = summary_values(snap)
+        styles: dict = {}
+        for status in snap.fishways:
+            t, c, st = panel_values(status)
+            texts.update(t)
+            classes.update(c)
+            styles.update(st)
+        index = {k: n for n, k in enumerate(item_keys)}
+        live = tuple((index[k], fid) for k, fid in [("site.time", None)] + [
+            (f"{s.id}.age", s.id) for s in snap.fishways] if k in index)
+        hit = _Outputs([texts.get(k, "") for k in item_keys],
+                       [classes.get(k, "") for k in item_keys],
+                       [classes.get(k, "ov-metric") for k in row_keys],
+                       [styles.get(k, missing_style) for k in style_keys], live)
+        with _outputs_lock:
+            _outputs[key] = hit
+            while len(_outputs) > _OUTPUTS_KEPT:
+                _outputs.popitem(last=False)
+        return hit.texts, hit.classes, hit.rows, hit.styles
+    texts = list(hit.texts)
+    by_id = {s.id: s for s in snap.fishways}
+    for n, fid in hit.live:
+        texts[n] = _time_text(snap) if fid is None else _age_text(by_id[fid])
+    return texts, hit.classes, hit.rows, hit.styles
+
+
+def clear_outputs() -> None:
+    """Forget the kept output lists (tests, benchmarks)."""
+    with _outputs_lock:
+        _outputs.clear()
 
 
 def _zone(name: str) -> Any:

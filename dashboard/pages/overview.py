@@ -4,7 +4,7 @@ adjustment is due.
 
 The layout is a fixed skeleton built from the site (no readings are loaded by ``layout``);
 :func:`refresh` fills it at load and every :data:`REFRESH_MS` with small properties only
-(texts, class names, style patches of the bullet markers), and :func:`refresh_sparklines`
+(texts, class names, the few style properties of the bullet markers), and :func:`refresh_sparklines`
 extends the sparklines with the minutes that completed since the last call (``extendData``),
 so nothing is redrawn whole. The state comes from :mod:`dashboard.services.overview`.
 """
@@ -18,12 +18,7 @@ from dash import ALL, Input, Output, State, callback, dcc, html, no_update
 
 from dashboard import auth
 from dashboard.context import current
-from dashboard.figures.overview import (
-    panel_values,
-    spark_extension,
-    sparkline_figure,
-    summary_values,
-)
+from dashboard.figures.overview import refresh_outputs, spark_extension, sparkline_figure
 from dashboard.services import overview as service
 from ops_logic.site import Fishway
 
@@ -133,21 +128,14 @@ def layout(**_: Any) -> Any:
 )
 def refresh(_n: int | None, item_ids: list[dict], row_ids: list[dict],
             style_ids: list[dict]) -> tuple[list, list, list, list]:
-    """Every text, class and marker of the page for the current readings."""
+    """Every text, class and marker of the page for the current status (see
+    :func:`dashboard.figures.overview.refresh_outputs`)."""
     auth.require("viewer")
     app = current()
     snap = service.snapshot(app.site, app.engine, service.now())
-    texts, classes = summary_values(snap)
-    styles: dict = {}
-    for status in snap.fishways:
-        t, c, s = panel_values(status, snap.units)
-        texts.update(t)
-        classes.update(c)
-        styles.update(s)
-    return ([texts.get(i["key"], "") for i in item_ids],
-            [classes.get(i["key"], "") for i in item_ids],
-            [classes.get(i["key"], "ov-metric") for i in row_ids],
-            [styles.get(i["key"], no_update) for i in style_ids])
+    return refresh_outputs(snap, tuple(i["key"] for i in item_ids),
+                           [i["key"] for i in row_ids], [i["key"] for i in style_ids],
+                           no_update)
 
 
 @callback(

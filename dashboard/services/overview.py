@@ -124,16 +124,16 @@ def _as_of(status: FishwayStatus, name: str, now_ms: int, alarms: dict[str, int]
     expired = not status.stale and (status.fresh_until_ms is None
                                     or now_ms > status.fresh_until_ms)
     if not expired:
-        return replace(status, name=name, age_s=age, alarms=alarms), None
+        return status._replace(name=name, age_s=age, alarms=alarms), None
     when = _local_clock(status.computed_ms, time_zone)
     why = (f"status of {when} not renewed (data now {age_text(age)} old): is the ingest "
            "service running?")
     state, reason = (status.state, status.reason) if status.state == "out_of_service" else (
         "no_data", why)
-    metrics = tuple(replace(m, status="stale", note=f"as of {when}") if m.status in (
+    metrics = tuple(m._replace(status="stale", note=f"as of {when}") if m.status in (
         "normal", "abnormal") else m for m in status.metrics)
     adjustment = replace(status.adjustment, stale=True)
-    return replace(status, name=name, age_s=age, alarms=alarms, stale=True, state=state,
+    return status._replace(name=name, age_s=age, alarms=alarms, stale=True, state=state,
                    reason=reason, metrics=metrics, adjustment=adjustment), \
         f"{name}: {why}"
 

@@ -28,7 +28,7 @@ import threading
 import time
 from collections import OrderedDict
 from collections.abc import Mapping
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from datetime import datetime, timedelta
 from typing import Any
 
@@ -515,8 +515,8 @@ def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any
     rec = latest_recommendation(engine, db_id) if db_id is not None else None
     adjust = _adjustment(ladder, f, rec, positions, missing, now,
                          max(3 * site.ingest.recommend_seconds, 300.0), units)
-    metrics = [replace(m, text=format_value(m.value, m.kind, units),
-                       band_text=metric_band_text(m, units)) for m in metrics]
+    metrics = [m._replace(text=format_value(m.value, m.kind, units),
+                          band_text=metric_band_text(m, units)) for m in metrics]
     left = [r.left_s for r in (fb, tw, read["water_temp"], read["do"]) if r.usable]
     fresh_until = inp.now_ms + int(1000 * min(left)) if left and not stale else None
     return FishwayStatus(

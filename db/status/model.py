@@ -19,7 +19,8 @@ QC; also when the stored status itself has gone stale, the ingest having stopped
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass
+from typing import NamedTuple
 
 from ops_logic.display import format_value
 from ops_logic.profile import Profile
@@ -102,10 +103,10 @@ class Reading:
         return self.status == "ok"
 
 
-@dataclass(frozen=True)
-class Metric:
+class Metric(NamedTuple):
     """One displayed quantity with its band (SI). ``status``: ``normal``, ``abnormal``
-    (outside its band), ``stale``, ``bad`` (failed QC or missing), ``none`` (no value)."""
+    (outside its band), ``stale``, ``bad`` (failed QC or missing), ``none`` (no value).
+    A named tuple: the overview reads some twenty of them every refresh."""
 
     key: str
     label: str
@@ -140,8 +141,10 @@ class Adjustment:
     stale: bool = False
 
 
-@dataclass(frozen=True)
-class FishwayStatus:
+class FishwayStatus(NamedTuple):
+    """The status of one fishway (see the module); a named tuple, as the overview reads two
+    every refresh."""
+
     id: str
     name: str
     state: str
@@ -155,7 +158,8 @@ class FishwayStatus:
     gauges: str
     gauges_ok: bool
     mode: str
-    profile: Profile | None = field(default=None, compare=False, repr=False)
+    profile: Profile | None = None
+    """The solved profile (when computed; not stored)."""
     computed_ms: int = 0
     """When the status was judged [epoch ms]."""
     data_ms: int | None = None

@@ -171,7 +171,7 @@ def read_status(engine: Engine, site_name: str) -> StoredStatus:
             metrics[fid] = []
             db_ids[fid] = int(row[2])
         if row[_METRIC.start] is not None:
-            metrics[fid].append(Metric(*row[_METRIC]))
+            metrics[fid].append(Metric._make(row[_METRIC]))
     return StoredStatus(tuple(_stored(heads[f], tuple(metrics[f])) for f in heads), alarms,
                         db_ids)
 

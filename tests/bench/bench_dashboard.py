@@ -9,25 +9,31 @@
    actuator positions are the recommendation at mid-range levels. ``--database PATH`` keeps
    the file and reuses it on the next run.
 2. The overview's refresh callback (``dashboard/pages/overview.py``: ``refresh``, called as a
-   plain function in a signed-in request) against the bare database work it does: the SQL
-   statements it sends are recorded (SQLAlchemy ``before_cursor_execute``) and replayed with
-   bare ``sqlite3`` on the same file (same page-cache size; transaction statements left out:
-   reads need none). The solve cache and the warm starts are cleared before each timed call
-   (live, every refresh sees new readings; a warm start from the previous profile would make
-   the solves cheaper, so this is the upper bound); the seven-day temperature statistic stays
-   cached as it is between its 10-minute recomputations. Target: the callback within 3× its
-   bare queries.
+   plain function in a signed-in request) against the bare database work it does. The status
+   it shows is judged once per ingest cycle and stored (``db.status``); the benchmark stores
+   it as the ingest would (``update_status`` at the clock below, its time reported against the
+   10 s poll). The SQL statements the callback sends are recorded (SQLite's statement trace on
+   every pooled connection: the overview's read goes through the DBAPI cursor, past
+   SQLAlchemy's events) and replayed with bare ``sqlite3`` on the same file (same page-cache
+   size; transaction statements left out: reads need none). Two cases: a *new* status (the
+   first refresh after an ingest cycle: the kept output lists are cleared before each call, so
+   the texts, classes and bullet styles are built) and the *same* status (every other refresh
+   until the next cycle). Target: the callback within 3× its bare queries, judged on the new
+   status case.
 3. A year-long trend of one tag: the trends page's ``draw`` callback (another engineer's
    ``dashboard/pages/trends.py``) for a chart whose plot area is 1500 px, and
    ``db.trends.trend(..., width_px=1500)`` itself, each against its recorded bare queries.
 4. Load run: the app served by waitress (8 threads, as ``fishway dashboard``) in this process,
    20 simulated clients (threads with ``urllib`` on loopback, each signed in as a viewer) that
    post the overview's refresh callback every 5 s for ``--seconds`` (default 60; ``--minutes 3``
-   for the full run). Prints requests, errors, median and 95th-percentile latency. The
-   clients and the server share this process (and its interpreter lock).
+   for the full run), while a writer thread stands in for the ingest: every 10 s it judges and
+   stores the status anew (profiles solved from scratch) and drops the kept output lists, so
+   each cycle's first refreshes build them again. Prints requests, errors, median and
+   95th-percentile latency. The clients, the server and the writer share this process (and
+   its interpreter lock).
 
-The clock of the dashboard is set to 20 s after the last reading so the data is fresh and every
-refresh solves the profiles. Run: ``.venv/bin/python tests/bench/bench_dashboard.py``.
+The clock of the dashboard is set to 20 s after the last reading so the data is fresh. Run:
+``.venv/bin/python tests/bench/bench_dashboard.py``.
 """
 from __future__ import annotations
 
@@ -148,17 +154,26 @@ def build_database(path: Path) -> tuple[float, int]:
 
 # -- recording and replaying the SQL a call makes ----------------------------------------------
 class Recorder:
+    """The SQL statements sent to the database while a call runs, from SQLite's statement trace
+    (``set_trace_callback``) on every pooled connection: it sees what goes through SQLAlchemy
+    and what goes straight to the DBAPI cursor alike, with the parameters bound in."""
+
+    _SKIP = ("BEGIN", "COMMIT", "ROLLBACK", "PRAGMA", "SAVEPOINT", "RELEASE")
+
     def __init__(self, engine):
         from sqlalchemy import event
 
         self.statements: list[tuple[str, tuple]] = []
         self.on = False
-        event.listen(engine, "before_cursor_execute", self._record)
+        event.listen(engine, "connect", self._attach)
+        engine.dispose()  # every connection from now on is a new one, traced
 
-    def _record(self, conn, cursor, statement, parameters, context, executemany) -> None:
-        if self.on and not statement.lstrip().upper().startswith(("BEGIN", "COMMIT",
-                                                                  "ROLLBACK", "PRAGMA")):
-            self.statements.append((statement, tuple(parameters or ())))
+    def _attach(self, dbapi_connection, _record) -> None:
+        dbapi_connection.set_trace_callback(self._record)
+
+    def _record(self, statement: str) -> None:
+        if self.on and not statement.lstrip().upper().startswith(self._SKIP):
+            self.statements.append((statement, ()))
 
     def record(self, fn):
         self.statements = []
@@ -215,8 +230,10 @@ def _ids(layout, kind):
 # -- 2 and 3. callbacks against their bare queries ---------------------------------------------
 def bench_callbacks(path: Path, app, engine, runs: int) -> None:
     from dashboard.context import current
-    from dashboard.figures.overview import panel_values, summary_values
+    from dashboard.figures.overview import clear_outputs, refresh_outputs
     from dashboard.services import overview as service
+    from db.status import update_status
+    from db.status.judge import clear_caches
     from db.trends import trend
 
     page = sys.modules["pages.overview"]
@@ -235,56 +252,41 @@ def bench_callbacks(path: Path, app, engine, runs: int) -> None:
 
     def refresh():
         return page.refresh(1, items, rows, styles)
-    refresh()  # catalogue, overrides, 7DADM caches filled as in steady operation
 
-    def cold_solves():  # every solve from scratch: no cached result, no warm start
-        service._solves.clear()
-        service._last.clear()
+    def status_cycle():  # the ingest's work per cycle, solves from scratch
+        clear_caches()
+        update_status(app_ctx.site, engine, NOW)
 
-    cold_solves()
+    status_cycle()
+    cycle = timed(status_cycle, max(5, runs // 3))
+    refresh()  # the catalogue and pool warm, as in steady operation
     statements = recorder.record(refresh)
-    cb = timed(refresh, runs, cold_solves)
     bare = bare_time(path, statements, runs)
-    def snapshot():
-        return service.snapshot(app_ctx.site, engine, NOW)
-
-    snap_cold = timed(snapshot, runs, cold_solves)
-    snap_warm = timed(snapshot, runs)
-    done = snapshot()
+    new = timed(refresh, runs, clear_outputs)
+    same = timed(refresh, runs)
+    read = timed(lambda: service.snapshot(app_ctx.site, engine, NOW), runs)
+    snap = service.snapshot(app_ctx.site, engine, NOW)
+    keys = (tuple(i["key"] for i in items), [i["key"] for i in rows],
+            [i["key"] for i in styles])
 
     def outputs():
-        summary_values(done)
-        for status in done.fishways:
-            panel_values(status, done.units)
+        clear_outputs()
+        refresh_outputs(snap, *keys)
 
     build = timed(outputs, runs)
     print("\nOverview refresh callback (two fishways, 35 tags, a year of data)")
-    print(f"  SQL statements per refresh: {len(statements)}")
-    print(f"  callback (solves not cached): {cb * 1e3:8.2f} ms")
-    print(f"  bare sqlite3 of its queries:  {bare * 1e3:8.2f} ms")
-    print(f"  ratio: {cb / bare:.2f}  (target ≤ {TARGET_RATIO:g}: "
-          f"{'met' if cb / bare <= TARGET_RATIO else 'NOT met'})")
-    print(f"  where the time goes (each measured alone): the status of both fishways "
-          f"{snap_cold * 1e3:.2f} ms, of which the two profile solves "
-          f"{max(snap_cold - snap_warm, 0) * 1e3:.2f} ms and the queries through SQLAlchemy "
-          f"and pandas with the judging of the readings {snap_warm * 1e3:.2f} ms; the texts, "
-          f"classes and style patches of the page {build * 1e3:.2f} ms")
-
-    def all_cold():
-        cold_solves()
-        service._t7.clear()
-        service._catalogue.clear()
-        from dashboard.services import site as site_service
-
-        site_service._CACHE.clear()
-
-    all_cold()
-    statements_cold = recorder.record(refresh)
-    cold = timed(refresh, runs, all_cold)
-    bare_cold = bare_time(path, statements_cold, runs)
-    print(f"  for information: every cache cleared {cold * 1e3:.2f} ms against "
-          f"{bare_cold * 1e3:.2f} ms bare ({len(statements_cold)} statements), ratio "
-          f"{cold / bare_cold:.2f}")
+    print(f"  the ingest's status per cycle (judge with cold solves, store): {cycle * 1e3:.1f} "
+          f"ms = {cycle / 10.0 * 100:.2f} % of the 10 s poll")
+    print(f"  SQL statements per refresh: {len(statements)}; bare sqlite3 of them "
+          f"{bare * 1e3:.3f} ms")
+    print(f"  callback, a new status (outputs built): {new * 1e3:.3f} ms, ratio "
+          f"{new / bare:.2f} (target ≤ {TARGET_RATIO:g}: "
+          f"{'met' if new / bare <= TARGET_RATIO else 'NOT met'})")
+    print(f"  callback, the same status (kept outputs, clock texts renewed): {same * 1e3:.3f} "
+          f"ms, ratio {same / bare:.2f}")
+    print(f"  where the time goes (each alone): reading the status and the alarm counts "
+          f"{read * 1e3:.3f} ms; building the texts, classes and bullet styles "
+          f"{build * 1e3:.3f} ms")
 
     trends_page = sys.modules.get("pages.trends")
     with engine.connect() as conn:
@@ -371,7 +373,7 @@ class _QueueDepth(logging.Handler):
             self.deepest = max(self.deepest, int(m.group(1)))
 
 
-def load_run(app, layout_ids: dict[str, list[dict]], seconds: float) -> None:
+def load_run(app, layout_ids: dict[str, list[dict]], seconds: float, app_ctx_engine) -> None:
     from waitress.server import create_server
 
     queue = _QueueDepth()
@@ -426,9 +428,32 @@ def load_run(app, layout_ids: dict[str, list[dict]], seconds: float) -> None:
                 results.append((ok, time.perf_counter() - t))
             nxt += CLIENT_PERIOD_S
 
+    cycles: list[float] = []
+    stop_writer = threading.Event()
+
+    def writer() -> None:  # stands in for the ingest: a new status every poll
+        from dashboard.context import current
+        from dashboard.figures.overview import clear_outputs
+        from db.status import update_status
+        from db.status.judge import clear_caches
+
+        site = current().site
+        while not stop_writer.wait(10.0):
+            t = time.perf_counter()
+            try:
+                clear_caches()
+                update_status(site, app_ctx_engine, NOW)
+                clear_outputs()
+            except Exception as exc:
+                with lock:
+                    failures.append(f"status writer: {exc}")
+            cycles.append(time.perf_counter() - t)
+
     threads = [threading.Thread(target=client, args=(k,)) for k in range(CLIENTS)]
     for th in threads:
         th.start()
+    writer_thread = threading.Thread(target=writer, daemon=True)
+    writer_thread.start()
     t_sign = time.monotonic()
     ends.append(time.monotonic() + 3600.0)  # replaced below, once everyone is signed in
     while ready.n_waiting < CLIENTS and any(th.is_alive() for th in threads):
@@ -441,6 +466,8 @@ def load_run(app, layout_ids: dict[str, list[dict]], seconds: float) -> None:
     ready.wait()
     for th in threads:
         th.join()
+    stop_writer.set()
+    writer_thread.join()
     wall = time.monotonic() - t0
     server.close()
     lat = sorted(x for _, x in results)
@@ -451,6 +478,8 @@ def load_run(app, layout_ids: dict[str, list[dict]], seconds: float) -> None:
     print(f"  sign-in of the {CLIENTS} clients (scrypt, page shell): {sign_in_s:.1f} s; "
           f"waitress queue then: {during_sign_in[0]} reports of all threads busy, deepest "
           f"{during_sign_in[1]} waiting")
+    print(f"  status writer: {len(cycles)} new statuses stored"
+          + (f", {statistics.median(cycles) * 1e3:.0f} ms each (median)" if cycles else ""))
     print(f"  refreshes: requests {len(results)}, errors {errors}, wall {wall:.0f} s; waitress "
           f"queue: {queue.reports} reports of all threads busy, deepest {queue.deepest} "
           "waiting")
@@ -477,6 +506,7 @@ def main(argv: list[str] | None = None) -> int:
     from dashboard.app import create_app
     from dashboard.services import overview as service
     from db.engine import make_engine
+    from db.migrate import upgrade
     from ops_logic.site import load_site
 
     load = os.getloadavg() if hasattr(os, "getloadavg") else (float("nan"),) * 3
@@ -496,6 +526,7 @@ def main(argv: list[str] | None = None) -> int:
         print(f"  {n:,} readings, {path.stat().st_size / 1e6:.0f} MB")
         site = load_site()
         engine = make_engine(sqlite_path=path)
+        upgrade(engine)  # a kept file from an older tree gets the newer tables
         app = create_app(site, engine, secret_key="bench")
         service.now = lambda: NOW
         bench_callbacks(path, app, engine, args.runs)
@@ -507,7 +538,7 @@ def main(argv: list[str] | None = None) -> int:
             layout = page.layout()
         ids = {"item": _ids(layout, page.OVERVIEW_ITEM), "row": _ids(layout, page.OVERVIEW_ROW),
                "style": _ids(layout, page.OVERVIEW_STYLE)}
-        load_run(app, ids, seconds)
+        load_run(app, ids, seconds, engine)
         engine.dispose()
     return 0
 

@@ -31,7 +31,7 @@ from db.history import record_recommendation
 from db.migrate import upgrade
 from db.readings import readings_frame, store_batch
 from db.site_sync import sync_site
-from db.status import compute_status, update_status
+from db.status import compute_status, read_status, update_status
 from db.status.judge import _rows
 from ops_logic.ladder import Ladder
 from ops_logic.profile import Criterion
@@ -101,7 +101,7 @@ def test_levels_are_the_newest_readings_in_feet(app_ctx):
         raw_m = _raw_latest(app_ctx.engine, tag)
         metric = east.metric(key)
         assert metric.value == pytest.approx(raw_m, abs=1e-12)
-        texts, _, _ = panel_values(east, "us")
+        texts, _, _ = panel_values(east)
         assert texts[f"east.{key}.value"] == f"{raw_m / FT:.2f} ft"  # 1 ft = 0.3048 m exactly
     # the forebay band is the site file's range, 252.0–255.5 ft (ops_logic/data/demo_site.toml)
     fb = east.metric("forebay")
@@ -143,7 +143,7 @@ def test_worst_drop_and_flows_are_those_of_the_solved_profile(app_ctx, demo_site
         max(pool.head_drop_m for pool in p.pools[1:]), abs=1e-9)
     assert east.metric("ladder_flow").value == pytest.approx(p.ladder_flow_m3s, rel=1e-9)
     assert east.metric("attraction_flow").value == pytest.approx(p.entrance_flow_m3s, rel=1e-9)
-    texts, _, _ = panel_values(east, "us")
+    texts, _, _ = panel_values(east)
     assert texts["east.attraction_flow.value"] == f"{p.entrance_flow_m3s / CFS:.1f} cfs"
 
 
@@ -194,7 +194,7 @@ def test_data_older_than_three_poll_periods_is_stale(app_ctx, age_s, stale):
         assert f.stale is stale
         assert f.age_s == pytest.approx(age_s)
         assert (f.state == "no_data") is stale
-        texts, classes, _ = panel_values(f, "us")
+        texts, classes, _ = panel_values(f)
         assert ("STALE" in texts[f"{f.id}.age"]) is stale
         assert ("is-stale" in classes[f"{f.id}.age"]) is stale
         assert (f.metric("forebay").status == "stale") is stale
@@ -264,7 +264,7 @@ def test_active_alarms_are_counted_by_priority(app_ctx):
                            "unacknowledged": 2, "shelved": 1}
     assert next(f for f in snap.fishways if f.id == "west").alarms["high"] == 0
     assert snap.site_alarms["medium"] == 1 and snap.site_alarms["unacknowledged"] == 1
-    texts, classes, _ = panel_values(east, "us")
+    texts, classes, _ = panel_values(east)
     assert texts["east.alarm.high"] == "2" and "alarm-1" in classes["east.alarm.high"]
     assert texts["east.alarm.low"] == "0" and "is-zero" in classes["east.alarm.low"]
     assert texts["east.alarms"] == "3 active, 2 unacknowledged; 1 shelved"
@@ -370,10 +370,11 @@ def test_refresh_fills_every_item_of_the_layout(overview_page, app_ctx, as_user)
     assert by_key["east.forebay.value"].endswith(" ft")
     assert all(t != "…" for t in texts)
     assert all(c for c in classes) and all(c.startswith("ov-metric") for c in row_classes)
-    # the markers get style patches (only the changed properties), never a whole layout
-    from dash import Patch
-
-    assert all(isinstance(p, Patch) for p in style_patches)
+    # the markers get a few style properties each (position, visibility), never a layout
+    assert all(isinstance(p, dict) and set(p) <= {"display", "left", "width", "outline"}
+               and p["display"] in ("block", "none") for p in style_patches)
+    shown = [p for p in style_patches if p["display"] == "block"]
+    assert shown and all(0.0 <= float(p["left"].rstrip("%")) <= 100.0 for p in shown)
 
 
 def test_refresh_needs_a_signed_in_user(overview_page, app_ctx, as_user):
@@ -431,15 +432,18 @@ def test_snapshot_is_quick_enough_for_a_ten_second_refresh(app_ctx):
 def test_stale_values_are_greyed_with_their_age(app_ctx):
     east = next(f for f in _snap(app_ctx, SEED_END + timedelta(minutes=5)).fishways
                 if f.id == "east")
-    texts, classes, _ = panel_values(east, "us")
+    texts, classes, _ = panel_values(east)
     assert classes["east.forebay.row"].startswith("ov-metric is-stale")
     assert "5 min old" in texts["east.forebay.note"]
     assert texts["east.age"] == "STALE: data 5 min old"
 
 
 def test_values_are_shown_in_si_for_an_si_site(app_ctx):
-    east = next(f for f in _snap(app_ctx).fishways if f.id == "east")
-    texts, _, _ = panel_values(east, "si")
+    # the texts are formatted in the site's units when the status is judged
+    site = app_ctx.site
+    si = site.model_copy(update={"site": site.site.model_copy(update={"units": "si"})})
+    east = next(f for f in compute_status(si, app_ctx.engine, NOW) if f.id == "east")
+    texts, _, _ = panel_values(east)
     assert texts["east.forebay.value"] == f"{east.metric('forebay').value:.3f} m"
     assert texts["east.attraction_flow.value"].endswith(" m³/s")
 
@@ -450,3 +454,75 @@ def test_pandas_index_of_latest_values_keeps_milliseconds(app_ctx):
         {"ts": pd.DatetimeIndex([SEED_END]).as_unit("ms"), "value": [1.0], "flag": [1]},
         index=pd.Index([7], name="tag_id")))
     assert latest == {7: (int(SEED_END.timestamp() * 1000), 1.0, 1)}
+
+
+# -- the stored status as of now -----------------------------------------------------------------
+def test_a_status_the_ingest_stopped_renewing_goes_stale_loudly(app_ctx):
+    update_status(app_ctx.site, app_ctx.engine, NOW)  # readings 20 s old: fresh for 10 s more
+    fresh = service.snapshot(app_ctx.site, app_ctx.engine, SEED_END + timedelta(seconds=30))
+    assert not any(f.stale for f in fresh.fishways) and not fresh.problems
+    late = service.snapshot(app_ctx.site, app_ctx.engine, SEED_END + timedelta(seconds=31))
+    for f in late.fishways:
+        assert f.stale and f.state == "no_data" and "not renewed" in f.reason
+        assert f.age_s == pytest.approx(31.0)
+        assert all(m.status in ("stale", "bad", "none") for m in f.metrics)
+        texts, classes, _ = panel_values(f)
+        assert "is-stale" in classes[f"{f.id}.age"]
+        assert texts[f"{f.id}.age"] == "STALE: data 31 s old"
+    assert any("is the ingest service running?" in p for p in late.problems)
+
+
+def test_without_any_stored_status_the_panels_say_so(app_ctx):
+    with app_ctx.engine.begin() as conn:
+        conn.exec_driver_sql("DELETE FROM fishway_status_metrics")
+        conn.exec_driver_sql("DELETE FROM fishway_status")
+    snap = service.snapshot(app_ctx.site, app_ctx.engine, NOW)
+    assert [f.state for f in snap.fishways] == ["no_data", "no_data"]
+    assert all("no status computed yet" in f.reason for f in snap.fishways)
+    texts, _, _ = panel_values(snap.fishways[0])
+    assert texts["east.forebay.value"] == "—"
+
+
+def test_refreshes_of_one_status_share_the_outputs_and_renew_the_age(overview_page, app_ctx,
+                                                                     as_user):
+    update_status(app_ctx.site, app_ctx.engine, NOW)
+    with as_user("viewer"):
+        layout = overview_page.layout()
+        ids = [_ids(layout, k) for k in (overview_page.OVERVIEW_ITEM,
+                                         overview_page.OVERVIEW_ROW,
+                                         overview_page.OVERVIEW_STYLE)]
+        first = overview_page.refresh(1, *ids)
+        with pytest.MonkeyPatch.context() as mp:
+            mp.setattr(service, "now", lambda: NOW + timedelta(seconds=5))
+            second = overview_page.refresh(2, *ids)
+    keys = [i["key"] for i in ids[0]]
+    a, b = dict(zip(keys, first[0], strict=True)), dict(zip(keys, second[0], strict=True))
+    assert (a["east.age"], b["east.age"]) == ("data 20 s old", "data 25 s old")
+    assert a["site.time"] != b["site.time"]
+    assert {k for k in keys if a[k] != b[k]} == {"site.time", "east.age", "west.age"}
+    assert first[1:] == second[1:]
+    # a new status (the next ingest cycle) is built anew
+    with app_ctx.engine.begin() as conn:
+        conn.exec_driver_sql("UPDATE fishway_status SET state = 'model_error', "
+                             "reason = 'a test reason'")
+    with app_ctx.engine.begin() as conn:  # same judging time: only the content differs
+        conn.exec_driver_sql("UPDATE fishway_status SET computed_ms = computed_ms + 1")
+    with as_user("viewer"):
+        third = overview_page.refresh(3, *ids)
+    c = dict(zip(keys, third[0], strict=True))
+    assert c["east.reason"] == "a test reason" and c["east.state"] == "MODEL ERROR"
+
+
+def test_logging_an_adjustment_renews_the_stored_status_at_once(app_ctx):
+    from dashboard.services import log as log_service
+
+    update_status(app_ctx.site, app_ctx.engine, NOW)
+    spec = next(s for s in app_ctx.ladder("west").settings.values() if s.kind == "level")
+    to_ft = (spec.low + spec.high) / 2 / FT
+    later = NOW + timedelta(seconds=5)
+    result = log_service.submit(app_ctx, "op9", log_service.LogForm(
+        kind="adjustment", fishway_id="west", text="test adjustment",
+        adjustments={spec.name: ("", f"{to_ft:.2f}")}), later)
+    assert result.ok, result.problems
+    stored = read_status(app_ctx.engine, app_ctx.site.site.name).statuses
+    assert {s.computed_ms for s in stored} == {int(later.timestamp() * 1000)}

@@ -52,6 +52,9 @@ def test_ingest_once_twice_keeps_context(capsys, tmp_path):
     assert "east stored, west stored" in out
     assert count(db, "SELECT count(*) FROM readings") == 2 * N_TAGS
     assert count(db, "SELECT count(*) FROM recommendations") == 2
+    # the status evaluator stored each fishway's status after the cycles (replaced, not added)
+    assert count(db, "SELECT count(*) FROM fishway_status") == 2
+    assert count(db, "SELECT count(DISTINCT fishway_id) FROM fishway_status_metrics") == 2
 
 
 @pytest.mark.parametrize(("argv", "expected"), [
