@@ -60,8 +60,16 @@ import sqlalchemy as sa
 from sqlalchemy.engine import Engine
 
 from db.history import finite_or_none, insert_row, rows_frame, ts_between, ts_frame
-from db.models import Base, Fishway, OperatorLogEntry, Recommendation, Site, User
-from db.types import UTCDateTime, ms_to_datetime, ms_to_index, to_epoch_ms, to_utc
+from db.models import (
+    SETTING_ACTIONS,
+    Fishway,
+    OperatorLogEntry,
+    Recommendation,
+    SettingChange,
+    Site,
+    User,
+)
+from db.types import ms_to_datetime, ms_to_index, to_epoch_ms, to_utc
 
 __all__ = [
     "corrections_of",
@@ -230,26 +238,9 @@ def corrections_of(engine: Engine, entry_ids: Iterable[int]) -> dict[int, list[i
 # (empty: no alarm data at all). ``hourly_maxima(engine, tag_id, start, end)`` → (epoch ms,
 # value) arrays of the hourly rollups' maxima (for a 7DADM).
 #
-# The table's model is described here, on the models' metadata, until db/models.py holds it
-# (migration 0002 builds the table and imports this module so that the comparison of the
-# models with the migrated schema sees it; move it to db/models.py and drop that import).
-SETTING_CHANGES = sa.Table(
-    "setting_changes", Base.metadata,
-    sa.Column("id", sa.Integer, primary_key=True),
-    sa.Column("ts", UTCDateTime(), nullable=False),
-    sa.Column("fishway_id", sa.ForeignKey("fishways.id"), nullable=False),
-    sa.Column("key", sa.String(200), nullable=False),
-    sa.Column("action", sa.String(16), nullable=False),
-    sa.Column("old_value", sa.Double),
-    sa.Column("new_value", sa.Double),
-    sa.Column("old_text", sa.String(100)),
-    sa.Column("new_text", sa.String(100)),
-    sa.Column("set_by", sa.String(100), nullable=False),
-    sa.Column("note", sa.Text, nullable=False, server_default=""),
-    sa.CheckConstraint("action IN ('set', 'revert')", name="action_known"),
-    sa.Index("ix_setting_changes_fishway_key", "fishway_id", "key"),
-)
-SETTING_ACTIONS = ("set", "revert")
+# The table's model is :class:`db.models.SettingChange`; ``SETTING_CHANGES`` (its table) and
+# ``SETTING_ACTIONS`` stay importable from here.
+SETTING_CHANGES = SettingChange.__table__
 QARTOD_FLAG_NAMES = {1: "pass", 2: "not evaluated", 3: "suspect", 4: "fail", 9: "missing"}
 """QARTOD flag names (IOOS flags manual v1.2, 2020; as in ``ioos_qc.qartod.QartodFlags``)."""
 

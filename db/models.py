@@ -16,9 +16,10 @@ criteria, binding constraint, feasibility and reason; JSON payloads),
 record of it) and ``alarm_events`` (append-only history), ``alarm_engine_state`` (one row per
 site: the rest of the engine's working state and the version that serialises its writers,
 :mod:`db.alarm.store`), ``operator_log`` (append-only; mistakes are fixed by a
-``correction`` entry that refers to the entry it corrects), ``users`` and
-``feed_health``. ``fishway_status`` and ``fishway_status_metrics``: the newest overview
-status of each fishway (replaced every ingest cycle, :mod:`db.status`).
+``correction`` entry that refers to the entry it corrects), ``setting_changes``
+(append-only; supervisors' changes of a fishway's targets, alarm limits and mode, migration
+0002), ``users`` and ``feed_health``. ``fishway_status`` and ``fishway_status_metrics``: the
+newest overview status of each fishway (replaced every ingest cycle, :mod:`db.status`).
 
 Readings layout
 ---------------
@@ -50,6 +51,7 @@ __all__ = [
     "NAMING_CONVENTION",
     "OPERATOR_LOG_KINDS",
     "QARTOD_FLAGS",
+    "SETTING_ACTIONS",
     "STATUS_STATES",
     "USER_ROLES",
     "ActuatorSetting",
@@ -64,6 +66,7 @@ __all__ = [
     "Reading",
     "Recommendation",
     "Rollup",
+    "SettingChange",
     "Site",
     "StatusMetric",
     "Tag",
@@ -82,6 +85,8 @@ NAMING_CONVENTION = {
 QARTOD_FLAGS = (1, 2, 3, 4, 9)
 USER_ROLES = ("viewer", "operator", "supervisor")
 OPERATOR_LOG_KINDS = ("adjustment", "observation", "shift_note", "correction")
+#: What a setting change does: set a new value, or revert to the site file's value.
+SETTING_ACTIONS = ("set", "revert")
 ALARM_PRIORITIES = ("low", "medium", "high", "critical")
 #: ANSI/ISA-18.2-2016 alarm states.
 ALARM_STATES = ("normal", "unacknowledged", "acknowledged", "rtn_unacknowledged",
@@ -286,6 +291,29 @@ class OperatorLogEntry(Base):
     from_value: Mapped[float | None] = mapped_column(sa.Double)
     to_value: Mapped[float | None] = mapped_column(sa.Double)
     text: Mapped[str] = mapped_column(sa.Text, server_default="")
+
+
+class SettingChange(Base):
+    """One change of a fishway's target, alarm limit or mode made on the dashboard (values SI,
+    or text for the mode); the newest row of a (fishway, key) is in force unless it is a
+    ``revert``."""
+
+    __tablename__ = "setting_changes"
+    __table_args__ = (
+        sa.CheckConstraint(_in("action", SETTING_ACTIONS), name="action_known"),
+        sa.Index("ix_setting_changes_fishway_key", "fishway_id", "key"),
+    )
+    id: Mapped[int] = mapped_column(sa.Integer, primary_key=True)
+    ts: Mapped[datetime] = mapped_column(UTCDateTime())
+    fishway_id: Mapped[int] = mapped_column(sa.ForeignKey("fishways.id"))
+    key: Mapped[str] = mapped_column(sa.String(200))
+    action: Mapped[str] = mapped_column(sa.String(16))
+    old_value: Mapped[float | None] = mapped_column(sa.Double)
+    new_value: Mapped[float | None] = mapped_column(sa.Double)
+    old_text: Mapped[str | None] = mapped_column(sa.String(100))
+    new_text: Mapped[str | None] = mapped_column(sa.String(100))
+    set_by: Mapped[str] = mapped_column(sa.String(100))
+    note: Mapped[str] = mapped_column(sa.Text, server_default="")
 
 
 class FeedHealth(Base):

@@ -1,8 +1,10 @@
 """Migration 0002 (setting_changes): upgrading from 0001 keeps the data; the new table is
 append-only and gives the overrides in force (db/migrations/versions/0002_setting_changes.py,
-the dashboard section of db/dashboard_queries.py)."""
+its model db.models.SettingChange, the dashboard section of db/dashboard_queries.py)."""
 from __future__ import annotations
 
+import subprocess
+import sys
 from datetime import UTC, datetime, timedelta
 
 import pytest
@@ -126,3 +128,37 @@ def test_users_frame_has_no_password_hashes(db_engine):
     frame = users_frame(db_engine)
     assert frame.loc["view9", "role"] == "viewer"
     assert "password_hash" not in frame.columns
+
+
+_MODEL_ONLY = """
+import sys
+from alembic.autogenerate import compare_metadata
+from alembic.runtime.migration import MigrationContext
+from db.engine import make_engine
+from db.migrate import upgrade
+from db.models import Base
+engine = make_engine(sys.argv[1])
+upgrade(engine)
+with engine.connect() as conn:
+    diff = compare_metadata(MigrationContext.configure(conn, opts={"compare_type": True}),
+                            Base.metadata)
+print("setting_changes" in Base.metadata.tables, "db.dashboard_queries" in sys.modules, diff)
+"""
+
+
+def test_the_model_lives_in_db_models_and_matches_the_migration(tmp_path):
+    # a fresh interpreter: nothing but db.models describes the table, and migrating does not
+    # need db.dashboard_queries (alembic's own comparison is the reference)
+    url = f"sqlite:///{tmp_path / 'fresh.sqlite'}"
+    out = subprocess.run([sys.executable, "-c", _MODEL_ONLY, url], capture_output=True,
+                         text=True, check=True, timeout=120)
+    assert out.stdout.split() == ["True", "False", "[]"]
+
+
+def test_dashboard_queries_still_exports_the_table_and_actions():
+    import db.dashboard_queries as q
+    from db.models import SETTING_ACTIONS, SettingChange
+
+    assert q.SETTING_CHANGES is SettingChange.__table__
+    assert q.SETTING_ACTIONS == SETTING_ACTIONS == ("set", "revert")
+    assert {"SETTING_CHANGES", "SETTING_ACTIONS"} <= set(q.__all__)
