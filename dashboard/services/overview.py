@@ -21,7 +21,7 @@ A fishway without any stored status (a new database before the ingest's first cy
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 from datetime import UTC, datetime
 from typing import Any
 
@@ -118,24 +118,23 @@ def _no_status(site: Site, fid: str) -> FishwayStatus:
 
 
 def _as_of(status: FishwayStatus, name: str, now_ms: int, alarms: dict[str, int] | None,
-           time_zone: str) -> tuple[FishwayStatus, str | None]:
-    """The stored status at ``now_ms``, and a site-line problem when it has gone stale."""
+           time_zone: str) -> tuple[FishwayStatus, bool]:
+    """The stored status at ``now_ms``, and whether it has expired unrenewed."""
     age = None if status.data_ms is None else (now_ms - status.data_ms) / 1000.0
     expired = not status.stale and (status.fresh_until_ms is None
                                     or now_ms > status.fresh_until_ms)
     if not expired:
-        return status._replace(name=name, age_s=age, alarms=alarms), None
+        return status._replace(name=name, age_s=age, alarms=alarms), False
     when = _local_clock(status.computed_ms, time_zone)
-    why = (f"status of {when} not renewed (data now {age_text(age)} old): is the ingest "
-           "service running?")
+    why = f"status of {when} not renewed: is the ingest service running?"  # age: beside it
     state, reason = (status.state, status.reason) if status.state == "out_of_service" else (
         "no_data", why)
     metrics = tuple(m._replace(status="stale", note=f"as of {when}") if m.status in (
         "normal", "abnormal") else m for m in status.metrics)
-    adjustment = replace(status.adjustment, stale=True)
+    adj = status.adjustment  # a judgement on old data: shown greyed, never as due
+    adjustment = Adjustment("unknown", f"as of {when}: {adj.text}", adj.changes, stale=True)
     return status._replace(name=name, age_s=age, alarms=alarms, stale=True, state=state,
-                   reason=reason, metrics=metrics, adjustment=adjustment), \
-        f"{name}: {why}"
+                           reason=reason, metrics=metrics, adjustment=adjustment), True
 
 
 def snapshot(site: Site, engine: Any, now: datetime) -> Snapshot:
@@ -143,19 +142,28 @@ def snapshot(site: Site, engine: Any, now: datetime) -> Snapshot:
     stored = read_status(engine, site.site.name)
     now_ms = int(now.timestamp() * 1000)
     by_id = {s.id: s for s in stored.statuses}
-    statuses, problems = [], []
+    statuses, problems, missing, expired = [], [], [], []
     for f in site.fishways:
         s = by_id.get(f.id)
         if s is None:
             statuses.append(_no_status(site, f.id))
-            problems.append(f"{f.name}: no status computed yet (the ingest service computes "
-                            "it every poll)")
+            missing.append(f.name)
             continue
-        shown, problem = _as_of(s, f.name, now_ms,
-                                _alarm_counts(stored.alarm_rows, stored.db_ids.get(f.id)),
-                                site.site.time_zone)
+        shown, old = _as_of(s, f.name, now_ms,
+                            _alarm_counts(stored.alarm_rows, stored.db_ids.get(f.id)),
+                            site.site.time_zone)
         statuses.append(shown)
-        problems += [*shown.problems, *([problem] if problem else [])]
+        problems += shown.problems
+        if old:
+            expired.append(shown)
+    if missing:
+        problems.append(f"no status computed yet for {', '.join(missing)}: the ingest service "
+                        "computes it every poll")
+    if expired:
+        last = max(s.computed_ms for s in expired)
+        problems.append(f"status of {', '.join(s.name for s in expired)} not renewed since "
+                        f"{_local_clock(last, site.site.time_zone)}: is the ingest service "
+                        "running?")
     return Snapshot(now, site.site.name, site.site.units, site.site.time_zone, tuple(statuses),
                     _alarm_counts(stored.alarm_rows, None), tuple(problems))
 
