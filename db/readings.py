@@ -28,10 +28,10 @@ the check for keys already stored). The batch is inserted optimistically with ``
 CONFLICT DO NOTHING``; only when fewer rows than sent were new is that undone (a
 savepoint) and the new rows found by a per-tag key look-up and inserted, so a fresh
 batch costs no look-ups and a re-sent one about twice its insert. Readings and rollup
-deltas are bound up to :data:`ROWS_PER_STATEMENT` rows per statement (multi-row VALUES). On PostgreSQL one
-``INSERT … SELECT FROM unnest(…) ON CONFLICT
-DO NOTHING RETURNING`` stores the batch and returns exactly the new rows, which keeps
-concurrent writers correct too.
+deltas are bound up to :data:`ROWS_PER_STATEMENT` rows per statement (multi-row VALUES).
+On PostgreSQL one ``INSERT … SELECT FROM unnest(…) ON CONFLICT DO NOTHING RETURNING``
+stores the batch and returns exactly the new rows, which keeps concurrent writers correct
+too.
 
 Read queries
 ------------
