@@ -16,14 +16,10 @@ Values typed by a user are read in the site's display units (``site.units``: ft,
 ft·lbf/s/ft³ for "us"), or with an explicit unit (``"0.4 ft"``, ``"0.12 m"``) for lengths,
 flows, velocities and power densities; temperatures are °C, dissolved oxygen mg/L.
 
->>> format_value(0.3048, "length", "us"), format_value(0.3048, "length", "si")
-('1.00 ft', '0.305 m')
->>> format_value(77.343, "elevation", "us"), format_value(2.83168, "flow", "us")
-('253.75 ft', '100.0 cfs')
->>> format_value(None, "do", "us"), format_value(8.25, "do", "us")
-('—', '8.25 mg/L')
->>> round(parse_value("1.2", "length", "us"), 5), round(parse_value("0.4 m", "length", "us"), 5)
-(0.36576, 0.4)
+Each parameter's display kind follows its unit suffix:
+
+>>> [_param_kind(n) for n in ("limit_mg_l", "threshold_pct", "threshold_pumps", "max_age_s")]
+['do', 'pct', 'pumps', 'seconds']
 """
 
 from __future__ import annotations
