@@ -10,6 +10,12 @@ Settings are a flat mapping of names to SI values, the names that ``fishway solv
 accepts and that a recommendation returns: ``exit_crest_m``, ``entrance_<gate>_crest_m``,
 ``aux_<id>_opening_pct`` (gravity valves) and ``aux_<id>_pumps`` (pumps running).
 The solver itself is in :mod:`ops_logic.profile`.
+
+The forebay a ladder sees is the water level upstream of its exit control, behind the trash rack:
+:func:`exit_forebay_m` (the rule) and :func:`ladder_forebay` (the rule with its fallback and the
+words that say which forebay was used). Everything that solves, recommends or judges a ladder
+from live readings passes the level these give to :meth:`Ladder.solve` or
+:meth:`Ladder.recommend`.
 """
 
 from __future__ import annotations
@@ -43,7 +49,139 @@ if TYPE_CHECKING:
     from ops_logic.recommend import Recommendation
     from ops_logic.site import Site
 
-__all__ = ["AuxSource", "Ladder", "SettingError", "SettingSpec"]
+__all__ = ["MAX_TRASH_RACK_LOSS_M", "NO_USABLE_LOSS", "AuxSource", "ExitForebay", "Ladder",
+           "SettingError", "SettingSpec", "exit_forebay_m", "ladder_forebay"]
+
+MAX_TRASH_RACK_LOSS_M = 1.0
+"""Largest trash-rack head loss [m] taken as real by :func:`exit_forebay_m`. An operating choice
+of ours, not a published value: exit trash racks are cleaned at a loss of one or two tenths of
+a metre (common practice; the ``trash_rack_dp_high`` alarm's default is 0.15 m), so a loss of a
+metre means a blocked rack, whose ladder no longer runs at the steady flow of the model, or a
+failed differential gauge; a larger reading is refused rather than subtracted."""
+
+
+def exit_forebay_m(forebay_m: float, trash_rack_loss_m: float | None = None, *,
+                   max_loss_m: float = MAX_TRASH_RACK_LOSS_M) -> float:
+    """Water level upstream of a ladder's exit control: the forebay less the trash-rack loss.
+
+    z_exit = z_forebay − max(Δh_rack, 0)    (z_exit = z_forebay when no loss is given)
+
+    The trash-rack head loss Δh_rack is the reading of the ``trash_rack_dp`` tag: a differential
+    gauge across the rack, measured from the forebay to the exit side (common practice for a
+    differential gauge across a rack). The velocity heads on either side are neglected, as
+    the gauge's level difference neglects them.
+
+    Parameters
+    ----------
+    forebay_m : float
+        Forebay water level, from the forebay gauge [m].
+    trash_rack_loss_m : float or None
+        Head loss across the trash rack, forebay to exit [m]; None when no usable reading.
+        A negative reading (a gauge offset: in steady flow towards the exit the water behind the
+        rack cannot stand above the forebay) counts as no loss.
+    max_loss_m : float
+        Largest loss taken as real [m] (:data:`MAX_TRASH_RACK_LOSS_M`).
+
+    Returns
+    -------
+    float
+        The level the ladder's exit control draws from [m].
+
+    Validity: finite inputs; ``trash_rack_loss_m`` ≤ ``max_loss_m`` (inclusive); outside these
+    a ValueError says which.
+
+    >>> round(exit_forebay_m(77.30, 0.10), 6), exit_forebay_m(77.30, -0.01)
+    (77.2, 77.3)
+    >>> exit_forebay_m(77.30)
+    77.3
+    >>> exit_forebay_m(77.30, 2.5)  # doctest: +ELLIPSIS
+    Traceback (most recent call last):
+    ...
+    ValueError: trash-rack head loss 2.5 m is above the 1 m taken as real (...)
+
+    Reference: the energy equation between the forebay and the exit side of the rack with the
+    rack's loss taken as measured (Henderson 1966; rack loss coefficients in Blevins 1984, for
+    a rack without a gauge); see DEVELOPERS.md, References.
+    """
+    if not math.isfinite(forebay_m):
+        raise ValueError(f"forebay level must be a finite number, got {forebay_m!r}")
+    if not (math.isfinite(max_loss_m) and max_loss_m > 0.0):
+        raise ValueError(f"max_loss_m must be a finite number > 0 m, got {max_loss_m!r}")
+    if trash_rack_loss_m is None:
+        return float(forebay_m)
+    if not math.isfinite(trash_rack_loss_m):
+        raise ValueError(f"trash-rack head loss must be a finite number, got "
+                         f"{trash_rack_loss_m!r}")
+    if trash_rack_loss_m > max_loss_m:
+        raise ValueError(f"trash-rack head loss {trash_rack_loss_m:.3g} m is above the "
+                         f"{max_loss_m:g} m taken as real (a blocked rack or a failed gauge)")
+    return float(forebay_m) - max(float(trash_rack_loss_m), 0.0)
+
+
+@dataclass(frozen=True)
+class ExitForebay:
+    """The forebay a ladder sees (:func:`ladder_forebay`): its level [m], the trash-rack loss
+    subtracted [m] (None: none subtracted) and, when none was, why (``note``)."""
+
+    level_m: float
+    loss_m: float | None
+    note: str = ""
+
+    @property
+    def source(self) -> str:
+        """Which forebay: ``"forebay − trash-rack head loss"`` or ``"forebay (<why not>)"``
+        (stored by the recommender as ``inputs["ladder_forebay_from"]``)."""
+        return "forebay − trash-rack head loss" if self.loss_m is not None else \
+            f"forebay ({self.note})"
+
+    def less(self, what: str) -> str:
+        """The words of a head measured from this forebay down to ``what``:
+        ``"forebay − trash-rack head loss − crest"`` or ``"forebay − crest (<why not>)"``."""
+        return f"forebay − trash-rack head loss − {what}" if self.loss_m is not None else \
+            f"forebay − {what} ({self.note})"
+
+
+NO_USABLE_LOSS = "no usable trash-rack head loss"
+"""The note of an :class:`ExitForebay` made without a usable ``trash_rack_dp`` reading."""
+
+
+def ladder_forebay(forebay_m: float, trash_rack_loss_m: float | None) -> ExitForebay:
+    """The forebay a ladder sees by the rule of :func:`exit_forebay_m`, with the words that say
+    which it is. A loss that rule refuses (not finite, above :data:`MAX_TRASH_RACK_LOSS_M`) is
+    treated as a reading that failed QC: the forebay itself is used, and ``note`` says why;
+    a forebay that is not finite raises ValueError.
+
+    Parameters
+    ----------
+    forebay_m : float
+        Forebay water level, from the forebay gauge [m].
+    trash_rack_loss_m : float or None
+        The usable ``trash_rack_dp`` reading [m] (forebay to exit), or None.
+
+    >>> e = ladder_forebay(77.30, 0.10)
+    >>> round(e.level_m, 6), e.loss_m, e.source
+    (77.2, 0.1, 'forebay − trash-rack head loss')
+    >>> e = ladder_forebay(77.30, None)
+    >>> e.level_m, e.source
+    (77.3, 'forebay (no usable trash-rack head loss)')
+    >>> e.less("crest")
+    'forebay − crest (no usable trash-rack head loss)'
+    >>> e = ladder_forebay(77.30, 3.0)
+    >>> e.level_m, e.loss_m, e.note  # doctest: +ELLIPSIS
+    (77.3, None, 'trash-rack head loss 3 m refused: above the 1 m taken as real (...)')
+    """
+    if trash_rack_loss_m is None:
+        return ExitForebay(exit_forebay_m(forebay_m), None, NO_USABLE_LOSS)
+    try:
+        level = exit_forebay_m(forebay_m, trash_rack_loss_m)
+    except ValueError:
+        if not math.isfinite(forebay_m):
+            raise
+        limit = (f"above the {MAX_TRASH_RACK_LOSS_M:g} m taken as real (a blocked rack or a "
+                 "failed gauge)" if math.isfinite(trash_rack_loss_m) else "not a number")
+        return ExitForebay(float(forebay_m), None,
+                           f"trash-rack head loss {trash_rack_loss_m:.3g} m refused: {limit}")
+    return ExitForebay(level, max(float(trash_rack_loss_m), 0.0))
 
 
 class SettingError(ValueError):
