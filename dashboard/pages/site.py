@@ -16,8 +16,10 @@ from dash import Input, Output, State, callback, ctx, dcc, html, no_update
 
 from dashboard import auth
 from dashboard.context import current
+from dashboard.controls import chosen_fishway
 from dashboard.services import overview as overview_service
 from dashboard.services import site as service
+from dashboard.services.profile import fishway_options
 from ops_logic.advisory import ADVISORY_CAUTION
 
 dash.register_page(__name__, path="/site", name="Site & settings", title="Site & settings")
@@ -109,17 +111,16 @@ def layout(fishway: str | None = None, **_: Any) -> Any:
     denied = auth.guard()
     if denied is not None:
         return denied
-    site = current().site
-    ids = [f.id for f in site.fishways]
-    chosen = fishway if fishway in ids else ids[0]
+    ctx = current()
+    site = ctx.site
+    chosen = chosen_fishway(ctx, fishway)
     supervisor = auth.has_role("supervisor")
     return html.Div(className="site-page", children=[
         dcc.Store(id=SITE_VERSION, data=0),
         html.Div(className="page-head", children=[
             html.H1("Site & settings"),
-            dcc.Dropdown(id=SITE_FISHWAY, options=[{"label": f.name, "value": f.id}
-                                                   for f in site.fishways],
-                         value=chosen, clearable=False, className="fishway-select"),
+            dcc.Dropdown(id=SITE_FISHWAY, options=fishway_options(ctx), value=chosen,
+                         clearable=False, className="fishway-select"),
             html.Span(f"{site.site.name} · display units "
                       f"{'US customary (ft, cfs)' if site.site.units == 'us' else 'SI'} · "
                       f"time zone {site.site.time_zone}", className="muted")]),

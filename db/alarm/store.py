@@ -65,7 +65,13 @@ from sqlalchemy.dialects import postgresql, sqlite
 from sqlalchemy.engine import Connection, Engine
 
 from db.alarms import alarm_records, record_alarm_event, upsert_alarm_state
-from db.models import OPERATOR_LOG_KINDS, AlarmEngineState, Fishway, OperatorLogEntry
+from db.models import (
+    OPERATOR_LOG_KINDS,
+    AlarmEngineState,
+    Fishway,
+    OperatorLogEntry,
+    SettingChange,
+)
 from db.models import Site as SiteRow
 from db.site_sync import sync_site
 from db.types import to_utc
@@ -80,14 +86,8 @@ WORKING_FIELDS = tuple(f.name for f in fields(AlarmRecord)
                        if f.name not in ("value", "message", "updated_at"))
 """Fields of an alarm record whose change is stored at once (see the module docstring)."""
 
-SETTING_CHANGES = sa.table(
-    "setting_changes", sa.column("id", sa.Integer), sa.column("ts", sa.DateTime(timezone=True)),
-    sa.column("fishway_id", sa.Integer), sa.column("key", sa.String),
-    sa.column("action", sa.String), sa.column("old_value", sa.Double),
-    sa.column("new_value", sa.Double), sa.column("old_text", sa.String),
-    sa.column("new_text", sa.String), sa.column("set_by", sa.String),
-    sa.column("note", sa.Text))
-"""The dashboard's append-only ``setting_changes`` table (migration 0002), as far as used here."""
+SETTING_CHANGES = SettingChange.__table__
+"""The append-only ``setting_changes`` table (migration 0002; :class:`db.models.SettingChange`)."""
 
 
 @dataclass(frozen=True)
