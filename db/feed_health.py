@@ -2,10 +2,12 @@
 
 ``update_feed_health(engine, feed, now, *, ok, readings_per_min=None, lag_s=None,
 error=None)`` records one poll cycle: when ``ok`` the success time, rate [readings/min]
-and lag [s] (newest reading's age at ``now``) are set; otherwise ``error`` (required) and
-its time are recorded and the last success is kept, so a failing feed shows as such.
+and lag [s] (newest reading's age at ``now``) are set and the count of failed polls in a row
+goes back to 0; otherwise ``error`` (required) and its time are recorded, the count goes up by
+one (in the same upsert, so the database keeps it across restarts of the ingest) and the last
+success is kept, so a failing feed shows as such.
 ``feed_health_frame(engine)`` → index ``feed``; columns last_success_at, readings_per_min,
-lag_s, last_error, last_error_at, updated_at (times tz-aware UTC).
+lag_s, last_error, last_error_at, updated_at (times tz-aware UTC), consecutive_errors.
 
 >>> from datetime import datetime, timezone
 >>> from db.engine import make_engine
@@ -15,8 +17,13 @@ lag_s, last_error, last_error_at, updated_at (times tz-aware UTC).
 >>> update_feed_health(eng, "opcua", t, ok=True, readings_per_min=120.0, lag_s=1.5)
 >>> update_feed_health(eng, "opcua", t, ok=False, error="connection refused")
 >>> row = feed_health_frame(eng).loc["opcua"]
->>> row["readings_per_min"], row["last_error"]
-(np.float64(120.0), 'connection refused')
+>>> update_feed_health(eng, "opcua", t, ok=False, error="connection refused")
+>>> row = feed_health_frame(eng).loc["opcua"]
+>>> row["readings_per_min"], row["last_error"], int(row["consecutive_errors"])
+(np.float64(120.0), 'connection refused', 2)
+>>> update_feed_health(eng, "opcua", t, ok=True, readings_per_min=118.0, lag_s=1.2)
+>>> int(feed_health_frame(eng).loc["opcua", "consecutive_errors"])
+0
 >>> eng.dispose()
 """
 from __future__ import annotations
@@ -55,17 +62,20 @@ def update_feed_health(engine: Engine, feed: str, now: datetime, *, ok: bool,
                        error: str | None = None) -> None:
     """Record the outcome of one poll cycle of ``feed`` at ``now``."""
     now = to_utc(now)
+    table = FeedHealth.__table__
     if ok:
         values = {"last_success_at": now,
                   "readings_per_min": _finite_or_none("readings_per_min", readings_per_min),
-                  "lag_s": _finite_or_none("lag_s", lag_s)}
+                  "lag_s": _finite_or_none("lag_s", lag_s), "consecutive_errors": 0}
+        update = dict(values)
     else:
         if not error:
             raise ValueError("a failed poll must say what went wrong (error)")
-        values = {"last_error": error, "last_error_at": now}
-    values["updated_at"] = now
+        values = {"last_error": error, "last_error_at": now, "consecutive_errors": 1}
+        update = {**values, "consecutive_errors": table.c.consecutive_errors + 1}
+    values["updated_at"] = update["updated_at"] = now
     stmt = _upsert(engine.dialect.name).values(feed=feed, **values)
-    stmt = stmt.on_conflict_do_update(index_elements=["feed"], set_=values)
+    stmt = stmt.on_conflict_do_update(index_elements=["feed"], set_=update)
     with engine.begin() as conn:
         conn.execute(stmt)
 

@@ -325,6 +325,7 @@ class FeedHealth(Base):
     last_error: Mapped[str | None] = mapped_column(sa.Text)
     last_error_at: Mapped[datetime | None] = mapped_column(UTCDateTime())
     updated_at: Mapped[datetime] = mapped_column(UTCDateTime())
+    consecutive_errors: Mapped[int] = mapped_column(sa.Integer, server_default="0")
 
 
 #: States of a fishway's overview status (:mod:`db.status`).

@@ -61,13 +61,15 @@ def _feeds_table(rows: list[service.FeedRow]) -> Any:
     if not rows:
         return html.P("No feed has reported yet (the ingest service records each poll "
                       "cycle here).", className="health-none")
-    head = ["Feed", "Status", "Last success", "Age", "Rate", "Lag", "Last error", "At"]
+    head = ["Feed", "Status", "Last success", "Age", "Rate", "Lag", "Errors in a row",
+            "Last error", "At"]
     return html.Table(className="grid-table health-table", children=[
         html.Thead(html.Tr([html.Th(h) for h in head])),
         html.Tbody([html.Tr(className=f"feed-{r.status}", children=[
             html.Td(r.feed), html.Td(r.status, className="health-status"),
             html.Td(r.last_success), html.Td(r.age, className="num"),
             html.Td(r.rate, className="num"), html.Td(r.lag, className="num"),
+            html.Td(str(r.errors_in_a_row), className="num"),
             html.Td(r.last_error, className="health-error"), html.Td(r.last_error_at)])
             for r in rows])])
 

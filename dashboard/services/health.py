@@ -62,6 +62,8 @@ class FeedRow:
     lag: str
     last_error: str
     last_error_at: str
+    errors_in_a_row: int = 0
+    """Failed polls since the last success (0 for a feed that is working)."""
 
 
 @dataclass(frozen=True)
@@ -110,7 +112,8 @@ def feed_rows(site: Site, engine: Any, now: datetime) -> list[FeedRow]:
             "—" if pd.isna(rate) else f"{rate:.0f} /min",
             "—" if pd.isna(lag) else f"{lag:.1f} s",
             "" if r["last_error"] is None or pd.isna(r["last_error"]) else str(r["last_error"]),
-            _local(err_at, zone) if not pd.isna(err_at) else ""))
+            _local(err_at, zone) if not pd.isna(err_at) else "",
+            int(r["consecutive_errors"])))
     return out
 
 

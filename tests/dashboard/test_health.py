@@ -59,6 +59,7 @@ def test_feed_status(app_ctx, success_age_s, error_age_s, status):
     assert row.status == status and row.feed == "plant"
     if error_age_s is not None:
         assert row.last_error == "connection refused <b>not markup</b>"
+    assert row.errors_in_a_row == (1 if error_age_s is not None else 0)  # the last call failed
     if success_age_s is not None:
         assert row.rate == "210 /min" and row.lag == "1.5 s"
 

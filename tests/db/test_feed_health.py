@@ -38,6 +38,25 @@ def test_feed_health_keeps_last_success_through_failures(db_engine):
         update_feed_health(db_engine, "opcua", T, ok=True, lag_s=-1.0)
 
 
+def test_failed_polls_in_a_row_are_counted_by_the_database(db_engine):
+    """The count rises by one per failure (the first failure of a new feed included) and
+    returns to 0 at a success; other feeds keep their own."""
+    def count(feed):
+        return int(feed_health_frame(db_engine).loc[feed, "consecutive_errors"])
+
+    for k in range(3):
+        update_feed_health(db_engine, "opcua", T + timedelta(seconds=10 * k), ok=False,
+                           error=f"timeout {k}")
+        assert count("opcua") == k + 1
+    update_feed_health(db_engine, "csv", T, ok=True, readings_per_min=1.0, lag_s=5.0)
+    assert count("csv") == 0 and count("opcua") == 3
+    update_feed_health(db_engine, "opcua", T + timedelta(seconds=40), ok=True,
+                       readings_per_min=60.0, lag_s=1.0)
+    assert count("opcua") == 0
+    update_feed_health(db_engine, "opcua", T + timedelta(seconds=50), ok=False, error="again")
+    assert count("opcua") == 1
+
+
 def test_catalogue(db_engine):
     site = add_site(db_engine, "Catalogue site", time_zone="Etc/GMT+8")
     fw = add_fishway(db_engine, site, "Upper ladder", kind="pool_and_weir")
