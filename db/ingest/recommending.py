@@ -12,14 +12,27 @@ position) the newest *settled* reading of its tag no older than the tag's ``max_
 - FAIL (4), MISSING (9) and NOT_EVALUATED-only readings never drive a recommendation.
 
 *Settled* means its spike verdict is known (a later reading of the tag exists), so a spike on
-the newest reading cannot slip in before the spike test has seen it. The forebay the ladder
-sees is the forebay less the trash-rack head loss (the ``trash_rack_dp`` tag measures forebay
-to exit) when that loss is usable, else the forebay itself (noted in the inputs). Without a
-usable temperature the solver's 10 °C is used (noted). Current settings come from the
-position tags, clipped to the actuator's range (pump counts rounded); a setting without a
+the newest reading cannot slip in before the spike test has seen it.
+
+The forebay the ladder sees is the water level upstream of its exit control: the forebay
+gauge less the trash-rack head loss (the ``trash_rack_dp`` tag measures forebay to exit),
+``forebay − max(loss, 0)``, when that reading is usable, else the forebay gauge itself; a loss
+above :data:`~ops_logic.ladder.MAX_TRASH_RACK_LOSS_M` is refused and the forebay gauge used
+(:func:`ops_logic.ladder.ladder_forebay`). Which it was is stored as ``inputs
+["ladder_forebay_from"]`` beside ``inputs["ladder_forebay_m"]``.
+
+Without a usable temperature the solver's 10 °C is used (noted). Current settings come from
+the position tags, clipped to the actuator's range (pump counts rounded); a setting without a
 usable reading falls back to the latest logged actuator setting (:mod:`db.history`, matched
 by setting name or actuator id), else the ladder's neutral default; ``inputs
 ["settings_source"]`` says which.
+
+The ladder is the fishway *in force* (site file plus supervisors' overrides,
+:func:`db.in_force.effective_site`; the caller hands it over), so an overridden target band
+is the band the recommendation aims at and its predicted criteria carry. A fishway whose mode
+is ``maintenance`` or ``out_of_service`` gets no recommendation: the caller skips it with that
+reason (:meth:`db.ingest.service.IngestService.recommend_once`), which is no failure of the
+recommender.
 
 Without a usable forebay or tailwater reading no recommendation is stored for the cycle; the
 reason goes to the log and to the ``feed_health`` row ``recommender:<fishway>`` (``ok=False``),
@@ -28,7 +41,8 @@ which a successful cycle sets back to ok with ``lag_s`` = the age of the oldest 
 The stored recommendation (:func:`db.history.record_recommendation`): ``inputs`` as above
 (values SI, times ISO 8601 UTC, flags), ``settings`` the recommended settings, ``predicted``
 a summary of the predicted profile (state, in_criteria, flows, entrance head, each criterion's
-value and whether it is met, pool levels), ``binding_constraint``, ``feasible``, ``reason``.
+value, band (``min``, ``max``) and whether it is met, pool levels), ``binding_constraint``,
+``feasible``, ``reason``.
 Recommendations are advisory (:data:`ops_logic.advisory.ADVISORY_CAUTION`).
 """
 from __future__ import annotations
@@ -46,12 +60,13 @@ from db.feed_health import update_feed_health
 from db.history import latest_actuator_settings, record_recommendation
 from db.ingest.live_qc import SUSPECT, LiveQc, Usable
 from db.types import ms_to_datetime, to_epoch_ms
-from ops_logic.ladder import Ladder
+from ops_logic.ladder import Ladder, ladder_forebay
+from ops_logic.overrides import MODE_LABELS
 from ops_logic.recommend import Recommendation
 from ops_logic.tags import TagDef
 
 __all__ = ["DEFAULT_TEMPERATURE_C", "RecommendOutcome", "fishway_tags", "health_feed_name",
-           "recommend_fishway"]
+           "not_operating", "recommend_fishway"]
 
 _log = logging.getLogger("db.ingest")
 
@@ -66,7 +81,8 @@ def health_feed_name(fishway_id: str) -> str:
 
 @dataclass(frozen=True)
 class RecommendOutcome:
-    """One fishway's recommender cycle: the stored id and result, or why there is none."""
+    """One fishway's recommender cycle: the stored id and result, or why there is none;
+    ``mode`` is the fishway's mode in force (not ``"operating"``: skipped for it, no failure)."""
 
     fishway_id: str
     ts: datetime
@@ -74,6 +90,12 @@ class RecommendOutcome:
     recommendation: Recommendation | None
     inputs: dict[str, Any] = field(default_factory=dict)
     skipped: str | None = None
+    mode: str = "operating"
+
+    @property
+    def failed(self) -> bool:
+        """No recommendation although the fishway is operating (missing inputs, an error)."""
+        return self.recommendation is None and self.mode == "operating"
 
 
 def _finite(v: Any) -> Any:
@@ -92,7 +114,8 @@ def _predicted(rec: Recommendation) -> dict[str, Any]:
         "state": p.state, "in_criteria": bool(p.in_criteria),
         "ladder_flow_m3s": p.ladder_flow_m3s, "entrance_flow_m3s": p.entrance_flow_m3s,
         "entrance_head_m": p.entrance_head_m,
-        "criteria": {c.name: {"value": float(c.value), "ok": bool(c.ok)} for c in p.criteria},
+        "criteria": {c.name: {"value": float(c.value), "ok": bool(c.ok), "min": c.min,
+                              "max": c.max} for c in p.criteria},
         "pool_levels_m": {q.id: q.water_level_m for q in p.pools},
     })
 
@@ -164,16 +187,15 @@ def _inputs(engine: Engine, ladder: Ladder, qc: LiveQc, tags: list[TagDef], fish
         levels[key] = u
         if u.flag == SUSPECT:
             suspect.append(key)
-    forebay = levels["forebay"].value
     dp = _usable(qc, role.get("trash_rack_dp"), now_ms)
     if dp is not None:
         _put(inputs, "trash_rack_dp", "m", dp)
-        if dp.flag == SUSPECT:
-            suspect.append("trash_rack_dp")
-        forebay -= max(dp.value, 0.0)
+    exit_fb = ladder_forebay(levels["forebay"].value, dp.value if dp is not None else None)
+    if dp is not None and dp.flag == SUSPECT and exit_fb.loss_m is not None:
+        suspect.append("trash_rack_dp")
+    forebay = exit_fb.level_m
     inputs["ladder_forebay_m"] = forebay
-    inputs["ladder_forebay_from"] = ("forebay - trash_rack_dp" if dp is not None
-                                     else "forebay (no usable trash-rack head loss)")
+    inputs["ladder_forebay_from"] = exit_fb.source
     temp = _usable(qc, role.get("water_temp"), now_ms)
     if temp is not None:
         _put(inputs, "temperature", "c", temp)
@@ -199,7 +221,7 @@ def recommend_fishway(engine: Engine, ladder: Ladder, qc: LiveQc, tags: list[Tag
     ----------
     engine : Engine
     ladder : Ladder
-        The fishway's solver model.
+        The fishway's solver model, as in force (:func:`db.in_force.effective_site`).
     qc : LiveQc
         The ingest's QC windows (the inputs are read from them).
     tags : list of TagDef
@@ -230,6 +252,19 @@ def recommend_fishway(engine: Engine, ladder: Ladder, qc: LiveQc, tags: list[Tag
     update_feed_health(engine, health_feed_name(fid), now, ok=True,
                        lag_s=max(inputs["input_age_s"], 0.0))
     return RecommendOutcome(fid, now, rec_id, rec, inputs)
+
+
+def not_operating(engine: Engine, fishway_id: str, mode: str, now: datetime) -> RecommendOutcome:
+    """The cycle of a fishway whose mode in force is ``maintenance`` or ``out_of_service``: no
+    recommendation, and the reason. Nothing failed, so the recommender's ``feed_health`` row is
+    recorded as a successful cycle (never as an error: the dewatered gauges of a fishway in
+    maintenance raise no feed problem)."""
+    if mode not in MODE_LABELS or mode == "operating":
+        raise ValueError(f"{fishway_id}: mode {mode!r} is not a mode out of operation")
+    why = f"no recommendation for {fishway_id}: {MODE_LABELS[mode].lower()}"
+    _log.info("%s", why)
+    update_feed_health(engine, health_feed_name(fishway_id), now, ok=True)
+    return RecommendOutcome(fishway_id, now, None, None, skipped=why, mode=mode)
 
 
 def fishway_tags(tags: list[TagDef]) -> Mapping[str, list[TagDef]]:

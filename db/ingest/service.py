@@ -20,7 +20,12 @@ wires the same methods to APScheduler for real time):
   (now − newest source time stamp, ≥ 0) — or, on a :class:`FeedError` (or any exception a feed
   raises), the error with the number of consecutive errors; the feed is polled again at its next
   period (its own back-off decides whether it really connects).
-- ``recommend_once(now)``: each fishway's recommender cycle (:mod:`db.ingest.recommending`).
+- ``recommend_once(now)``: each fishway's recommender cycle (:mod:`db.ingest.recommending`)
+  with its ladder *in force* (site file plus supervisors' overrides,
+  :func:`db.in_force.effective_site`, read at each cycle); a fishway whose mode in force is
+  ``maintenance`` or ``out_of_service`` is skipped with that reason
+  (:func:`~db.ingest.recommending.not_operating`: no recommendation, no failure, no feed
+  problem; counted in ``totals["not_operating"]``, not in ``totals["skipped"]``).
 - ``prune_once(now)``: :func:`db.retention.prune` with the site's ``keep_raw_days``.
 - ``partitions_once(now)``: :func:`db.partitions.ensure_partitions` two months ahead.
 - ``backup_once(now)``: :func:`db.ingest.upkeep.backup_sqlite` (SQLite only).
@@ -63,12 +68,14 @@ from sqlalchemy.engine import Engine
 from db.catalog import tags_frame
 from db.feed_health import update_feed_health
 from db.feeds.base import Feed, FeedReading
+from db.in_force import effective_site
 from db.ingest.live_qc import LiveQc, Usable
 from db.ingest.qc_config import PAIR_FAIL_M, PAIR_SUSPECT_M, redundant_pairs, tag_thresholds
 from db.ingest.recommending import (
     RecommendOutcome,
     fishway_tags,
     health_feed_name,
+    not_operating,
     recommend_fishway,
 )
 from db.ingest.store import apply_reflags, recent_readings
@@ -263,7 +270,6 @@ class IngestService:
             self.groups.setdefault(PollGroup(t.feed, float(t.poll_seconds)),
                                    _Group([])).tags.append(t)
         self.states = {fid: FeedState(fid) for fid in self.feeds}
-        self.ladders = {f.id: Ladder(f, units=site.site.units) for f in site.fishways}
         self._fishway_tags = fishway_tags(self.tags)
         self.evaluators = list(evaluators)
         self.latest_recommendations: dict[str, Recommendation] = {}
@@ -271,11 +277,16 @@ class IngestService:
         self.keep_backups = int(keep_backups)
         self.max_backfill_s = float(max_backfill_s)
         self.totals = {"stored": 0, "received": 0, "backfilled": 0, "reflagged": 0,
-                       "recommendations": 0, "skipped": 0}
+                       "recommendations": 0, "skipped": 0, "not_operating": 0}
         """Running counts since the service was made (for status lines)."""
         self._warned: set[str] = set()
         self._lock = threading.RLock()
         self._started = False
+
+    @property
+    def ladders(self) -> dict[str, Ladder]:
+        """The fishways' ladders in force (:func:`db.in_force.effective_site`), by id."""
+        return effective_site(self.site, self.engine).ladders
 
     # -- start-up ---------------------------------------------------------------------------
     def start_up(self, now: datetime) -> None:
@@ -432,9 +443,14 @@ class IngestService:
             out = []
             for f in self.site.fishways:
                 try:
-                    o = recommend_fishway(self.engine, self.ladders[f.id], self.qc,
-                                          self._fishway_tags[f.id],
-                                          self.fishway_db_ids[f.id], now)
+                    eff = effective_site(self.site, self.engine)  # cached: one small query
+                    mode = eff.modes.get(f.id, "operating")
+                    if mode != "operating":
+                        o = not_operating(self.engine, f.id, mode, now)
+                    else:
+                        o = recommend_fishway(self.engine, eff.ladders[f.id], self.qc,
+                                              self._fishway_tags[f.id],
+                                              self.fishway_db_ids[f.id], now)
                 except Exception as exc:
                     _log.exception("recommender of %s failed", f.id)
                     o = RecommendOutcome(f.id, now, None, None,
@@ -444,6 +460,9 @@ class IngestService:
                 if o.recommendation is not None:
                     self.latest_recommendations[f.id] = o.recommendation
                     self.totals["recommendations"] += 1
+                elif not o.failed:
+                    self.latest_recommendations.pop(f.id, None)  # none while not operating
+                    self.totals["not_operating"] += 1
                 else:
                     self.totals["skipped"] += 1
                 out.append(o)
