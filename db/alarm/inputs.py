@@ -24,13 +24,21 @@ Per fishway it then sets ``current_settings`` — the settings *last logged* (th
 actuator-mismatch rule compares them with the positions), and for an actuator never logged its
 position tag's newest usable reading — and solves the **current profile**
 (:meth:`ops_logic.ladder.Ladder.solve`, warm-started from the previous cycle's) from the usable
-forebay and tailwater gauges, the trash-rack head loss (the ladder sees the forebay less that
-loss, when the ``trash_rack_dp`` reading is usable), the water temperature (else the solver's
-10 °C) and the actual positions (position tags, clipped to each actuator's range, pump counts
-rounded; else the logged setting). Without a usable forebay or tailwater, or a position for
-every setting, there is no profile and the hydraulic rules say so (``not_evaluated``); the
-reason is in :attr:`InputReader.problems`. A *usable* reading has flag 1 or 2 and is no older
-than the fishway's ``stale_tag.max_age_s``.
+forebay and tailwater gauges, the water temperature (else the solver's 10 °C) and the actual
+positions (position tags, clipped to each actuator's range, pump counts rounded; else the
+logged setting). Without a usable forebay or tailwater, or a position for every setting, there
+is no profile and the hydraulic rules say so (``not_evaluated``); the reason is in
+:attr:`InputReader.problems`. A *usable* reading has flag 1 or 2 and is no older than the
+fishway's ``stale_tag.max_age_s``.
+
+The forebay the ladder sees is the water level upstream of its exit control: the forebay
+gauge less the trash-rack head loss (the ``trash_rack_dp`` tag measures forebay to exit),
+``forebay − max(loss, 0)``, when that reading is usable, else the forebay gauge itself; a loss
+above :data:`~ops_logic.ladder.MAX_TRASH_RACK_LOSS_M` is refused and the forebay gauge used
+(:func:`ops_logic.ladder.ladder_forebay`). A refused loss is named in
+:attr:`InputReader.problems`; the profile's ``forebay_m`` is the level used. The alarm rules
+take the measured exit weir head from the same rule
+(:func:`ops_logic.alarms.rules.evaluate_rules`).
 
 The fishway's mode is not an input here: it is kept in the engine state (operator actions and
 :mod:`db.alarm.overrides`).
@@ -53,7 +61,7 @@ from db.models import Recommendation as RecommendationRow
 from db.types import to_utc
 from ops_logic.alarms.inputs import AlarmInputs, FeedStatus, FishwayInputs, TagValue
 from ops_logic.alarms.temperature import seven_day_average_daily_max
-from ops_logic.ladder import Ladder, SettingError
+from ops_logic.ladder import Ladder, SettingError, ladder_forebay
 from ops_logic.profile import Profile
 from ops_logic.recommend import Recommendation, SettingChange
 from ops_logic.site import Site
@@ -268,7 +276,10 @@ class InputReader:
             return None
         dp = self._usable(readings, fid, "trash_rack_dp", max_age)
         temp = self._usable(readings, fid, "water_temp", max_age)
-        forebay = fb.value - max(dp.value, 0.0) if dp is not None else fb.value
+        exit_fb = ladder_forebay(fb.value, dp.value if dp is not None else None)
+        if dp is not None and exit_fb.loss_m is None:
+            self.problems.append(f"{fid}: the profile uses the {exit_fb.source}")
+        forebay = exit_fb.level_m
         temperature = temp.value if temp else DEFAULT_TEMPERATURE_C
         key = (forebay, tw.value, temperature, tuple(sorted(positions.items())))
         if fid in self._profiles and self._profile_keys.get(fid) == key:

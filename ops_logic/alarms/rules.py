@@ -6,6 +6,13 @@ that failed QC or is stale): the engine holds those alarms as they were, and the
 say why the data is missing. Measured values are used where the tag catalogue has a gauge and
 its reading is usable (QC pass or not evaluated, fresh); otherwise the solved profile's value.
 
+The measured exit weir head is taken from the forebay the ladder sees: the forebay gauge less
+the trash-rack head loss (the ``trash_rack_dp`` tag measures forebay to exit),
+``forebay − max(loss, 0)``, when that reading is usable, else the forebay gauge itself; a loss
+above :data:`~ops_logic.ladder.MAX_TRASH_RACK_LOSS_M` is refused and the forebay gauge used
+(:func:`ops_logic.ladder.ladder_forebay`). Its message says which
+(``exit weir head (measured: forebay − trash-rack head loss − crest)``).
+
 Alarm keys: ``<rule>@<fishway>`` for one-per-fishway rules, ``<rule>@<fishway>.<actuator or
 pool>`` per actuator, auxiliary source or pool, ``<rule>@<tag name>`` per tag, and
 ``feed_comms@<feed>`` per feed (no fishway).
@@ -17,7 +24,8 @@ rule                   value                                                  li
 =====================  =====================================================  ==============
 head_drop              worst pool-to-pool drop of the profile                 targets band
 entrance_head          entrance pool gauge − tailwater gauge, else profile    targets band
-exit_head              forebay gauge − exit crest position, else profile      targets band
+exit_head              forebay gauge − trash-rack loss − exit crest position  targets band
+                       (the forebay the ladder sees), else profile
 power_density          worst pool of the profile                              targets max
 diffuser_velocity      each auxiliary source's diffuser, profile              targets max
 attraction_flow_low    entrance flow of the profile                           targets min
@@ -47,6 +55,7 @@ from datetime import datetime
 from ops_logic.alarms.config import AlarmSettings
 from ops_logic.alarms.inputs import AlarmInputs, FishwayInputs, TagValue
 from ops_logic.alarms.limits import limit_condition
+from ops_logic.ladder import ladder_forebay
 from ops_logic.profile import Criterion
 from ops_logic.site import Fishway, Site
 from ops_logic.tags import TagDef
@@ -182,8 +191,12 @@ def _hydraulic(ctx: _Ctx, f: Fishway, s: AlarmSettings, fin: FishwayInputs) -> N
         measured["entrance_head"] = pool_level.value - tw.value
     crest = next((ctx.reading(tg, s) for tg in ctx.tags_of(f.id, "setting")
                   if tg.setting == "exit_crest_m"), None)
+    sources = {}
     if fb is not None and crest is not None:
-        measured["exit_head"] = fb.value - crest.value
+        dp = _gauge(ctx, f, s, "trash_rack_dp")
+        exit_fb = ladder_forebay(fb.value, dp.value if dp is not None else None)
+        measured["exit_head"] = exit_fb.level_m - crest.value
+        sources["exit_head"] = f"measured: {exit_fb.less('crest')}"
     bands = {
         "forebay_level": ("forebay_range", "forebay level", *f.forebay_range),
         "tailwater_level": ("tailwater_range", "tailwater level", *f.tailwater_range),
@@ -198,7 +211,7 @@ def _hydraulic(ctx: _Ctx, f: Fishway, s: AlarmSettings, fin: FishwayInputs) -> N
             continue
         key = f"{rule}@{f.id}"
         value = measured.get(name)
-        source = "measured"
+        source = sources.get(name, "measured")
         if value is None and name in names:
             value, source = names[name].value, "profile"
         if value is None:

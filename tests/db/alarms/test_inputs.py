@@ -68,6 +68,27 @@ def test_profile_from_the_gauges_and_positions(db_engine, reader, feed, quiet):
     assert any("east: no profile: no usable reading of forebay" in p for p in reader.problems)
 
 
+@pytest.mark.parametrize(("loss_m", "lowered_m", "problem"), [
+    (0.10, 0.10, None),  # hand calculation: the ladder sees the forebay less 0.10 m
+    (-0.02, 0.0, None),  # a negative reading counts as no loss
+    (2.5, 0.0, "east: the profile uses the forebay (trash-rack head loss 2.5 m refused"),
+])
+def test_the_profile_sees_the_forebay_less_the_trash_rack_loss(db_engine, reader, feed, quiet,
+                                                               loss_m, lowered_m, problem):
+    feed(T0, east__trash_rack_dp=loss_m)
+    p = reader.read(T0).fishways["east"].profile
+    assert p.forebay_m == pytest.approx(quiet["east.forebay_level"] - lowered_m, abs=1e-12)
+    exit_head = next(c for c in p.criteria if c.name == "exit_head")
+    assert exit_head.value == pytest.approx(p.forebay_m - quiet["east.exit.crest"], abs=1e-12)
+    named = [x for x in reader.problems if x.startswith("east: the profile uses")]
+    assert (named[0].startswith(problem) if problem else named == []), reader.problems
+    # an unusable loss reading: the forebay gauge itself
+    feed(T0 + timedelta(minutes=1), flags={"east.trash_rack_dp": QARTOD["fail"]},
+         east__trash_rack_dp=0.10)
+    p = reader.read(T0 + timedelta(minutes=1)).fishways["east"].profile
+    assert p.forebay_m == pytest.approx(quiet["east.forebay_level"], abs=1e-12)
+
+
 def test_logged_settings_are_the_current_settings(db_engine, reader, feed, quiet):
     fw = reader.ids.fishways["east"]
     record_actuator_setting(db_engine, fw, T0 - timedelta(hours=1), "exit_crest_m", 76.5,

@@ -144,3 +144,33 @@ def test_instantaneous_temperature_basis(alarm_site, plant, now):
 def test_unjudged_rules_say_why(alarm_site, plant, now, change, key, reason):
     conds, skipped = judge(alarm_site, plant, plant.inputs(now, **change), now)
     assert key not in conds and skipped[key].startswith(reason)
+
+
+@pytest.mark.parametrize(("change", "loss_m", "words"), [
+    # hand calculation: the ladder sees the forebay less the trash-rack loss (forebay to exit)
+    ({"values": {"t1.trash_rack_dp": 0.10}}, 0.10, "forebay − trash-rack head loss − crest"),
+    ({"values": {"t1.trash_rack_dp": 0.0}}, 0.0, "forebay − trash-rack head loss − crest"),
+    ({"values": {"t1.trash_rack_dp": -0.03}}, 0.0, "forebay − trash-rack head loss − crest"),
+    ({"flags": {"t1.trash_rack_dp": 4}}, 0.0, "forebay − crest (no usable trash-rack head"),
+    ({"values": {"t1.trash_rack_dp": 1.7}}, 0.0,
+     "forebay − crest (trash-rack head loss 1.7 m refused"),
+])
+def test_measured_exit_head_is_taken_from_the_forebay_the_ladder_sees(alarm_site, plant, now,
+                                                                      change, loss_m, words):
+    fb, crest = plant.values["t1.forebay_level"], plant.values["t1.exit.crest"]
+    conds, _ = judge(alarm_site, plant, plant.inputs(now, **change), now)
+    c = conds["exit_head@t1"]
+    assert c.value == pytest.approx(fb - loss_m - crest, abs=1e-12)
+    assert f"(measured: {words}" in c.message
+
+
+def test_a_trash_rack_loss_can_take_the_exit_head_out_of_its_band(alarm_site, plant, now):
+    # the quiet plant's measured exit head less 0.10 m lies below the band's minimum (the band
+    # of the test site, conftest.py): the alarm judges the lowered head
+    band = alarm_site.fishways[0].targets.exit_head
+    head = plant.values["t1.forebay_level"] - plant.values["t1.exit.crest"]
+    loss = head - band.min + 0.01
+    conds, _ = judge(alarm_site, plant,
+                     plant.inputs(now, values={"t1.trash_rack_dp": loss}), now)
+    assert conds["exit_head@t1"].raw
+    assert conds["exit_head@t1"].value == pytest.approx(band.min - 0.01, abs=1e-12)
