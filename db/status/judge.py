@@ -7,12 +7,22 @@ position tags, or the settings last logged in ``actuator_settings`` when a posit
 usable reading) go to ``Ladder.solve`` of the fishway *in force* (site file plus supervisors'
 overrides, :func:`db.in_force.effective_site`). A solve takes about a millisecond on the demo's
 40-pool ladder (less warm-started from the ladder's previous profile), and results are cached
-by their rounded inputs. The entrance head and the exit weir head are taken from the gauges
-where they exist (entrance-pool gauge − tailwater; forebay − exit crest position), as the alarm
-rules take them; flows, the worst pool head drop and the power densities come from the solved
-profile. The gauged pool levels are compared with the profile as a check of the model and the
-gauges. Water quality (temperature, its 7DADM, dissolved oxygen) is shown beside its limits but
-does not set the hydraulic state: alarms carry it.
+by their rounded inputs.
+
+The forebay the ladder sees is the water level upstream of its exit control: the forebay
+gauge less the trash-rack head loss (the ``trash_rack_dp`` tag measures forebay to exit),
+``forebay − max(loss, 0)``, when that reading is usable, else the forebay gauge itself; a loss
+above :data:`~ops_logic.ladder.MAX_TRASH_RACK_LOSS_M` is refused and the forebay gauge used
+(:func:`ops_logic.ladder.ladder_forebay`). The solve takes that level, and the forebay
+metric's note says which it was (the metric itself is the forebay gauge).
+
+The entrance head and the exit weir head are taken from the gauges where they exist
+(entrance-pool gauge − tailwater; the forebay the ladder sees − exit crest position, the
+metric's source saying which forebay), as the alarm rules take them; flows, the worst pool
+head drop and the power densities come from the solved profile. The gauged pool levels are
+compared with the profile as a check of the model and the gauges. Water quality
+(temperature, its 7DADM, dissolved oxygen) is shown beside its limits but does not set the
+hydraulic state: alarms carry it.
 
 An adjustment is due when the latest stored recommendation differs from the current positions
 by more than the ``adjustment_due`` thresholds of the fishway's alarm settings.
@@ -54,7 +64,7 @@ from db.status.model import (
 )
 from ops_logic.alarms.temperature import seven_day_average_daily_max
 from ops_logic.display import format_value
-from ops_logic.ladder import Ladder, SettingSpec
+from ops_logic.ladder import Ladder, SettingSpec, ladder_forebay
 from ops_logic.overrides import MODE_LABELS
 from ops_logic.profile import Criterion, Profile
 from ops_logic.site import AdjustableWeirExit, Fishway, Site
@@ -376,8 +386,9 @@ def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any
     units, db_id = site.site.units, eff.db_ids.get(fid)
     t, al = f.targets, f.alarms
     read = {role: _reading(inp.latest, inp.good, find_tag(inp.tags, fid, role), inp.now_ms)
-            for role in ("forebay", "tailwater", "water_temp", "do")}
-    fb, tw = read["forebay"], read["tailwater"]
+            for role in ("forebay", "tailwater", "water_temp", "do", "trash_rack_dp")}
+    fb, tw, dp = read["forebay"], read["tailwater"], read["trash_rack_dp"]
+    exit_fb = ladder_forebay(fb.value, dp.value if dp.usable else None) if fb.usable else None
     positions, missing, wrong = _positions(ladder, f, inp, engine, db_id, units)
     temp_c = read["water_temp"].value if read["water_temp"].usable else DEFAULT_TEMP_C
 
@@ -394,8 +405,10 @@ def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any
             state = "no_data" if problems else "model_error"
             reason = "; ".join(problems + wrong)
     else:
+        assert exit_fb is not None  # the forebay reading is usable here
         try:
-            profile = _solve(ladder, eff.version, fb.value, tw.value, positions, temp_c)
+            profile = _solve(ladder, eff.version, exit_fb.level_m, tw.value, positions,
+                             temp_c)
         except ValueError as exc:
             if state != "out_of_service":
                 state, reason = "model_error", str(exc)
@@ -410,8 +423,10 @@ def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any
     measured: dict[str, tuple[float, str]] = {}
     if ep is not None and tw.usable:
         measured["entrance_head"] = (ep.value - tw.value, f"gauge {entrance_pool} − tailwater")
-    if isinstance(f.exit, AdjustableWeirExit) and fb.usable and "exit_crest_m" in positions:
-        measured["exit_head"] = (fb.value - positions["exit_crest_m"], "forebay − crest")
+    if isinstance(f.exit, AdjustableWeirExit) and exit_fb is not None and \
+            "exit_crest_m" in positions:
+        measured["exit_head"] = (exit_fb.level_m - positions["exit_crest_m"],
+                                 exit_fb.less("crest"))
     checks = [c._replace(value=measured[c.name][0], ok=(c.min is None or measured[c.name][0]
                                                         >= c.min - 1e-9) and (
         c.max is None or measured[c.name][0] <= c.max + 1e-9)) if c.name in measured else c
@@ -447,7 +462,9 @@ def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any
     wd = worst_criterion(drops) if drops else None
     eh = crit("entrance_head")
     metrics = [
-        _metric_from("forebay", "Forebay", "elevation", fb, *f.forebay_range),
+        _metric_from("forebay", "Forebay", "elevation", fb, *f.forebay_range,
+                     note=f"ladder sees {format_value(exit_fb.level_m, 'elevation', units)}: "
+                          f"{exit_fb.source}" if exit_fb is not None else ""),
         _metric_from("tailwater", "Tailwater", "elevation", tw, *f.tailwater_range),
         model_metric("ladder_flow", "Ladder flow", "flow", None,
                      profile.ladder_flow_m3s if profile else None,
@@ -471,8 +488,8 @@ def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any
             xh.value if xh else None)
         metrics.append(model_metric("exit_head", "Exit weir head", "length", xh, value,
                                     t.exit_head.min, t.exit_head.max, t.exit_head.aim,
-                                    source="forebay − crest" if "exit_head" in measured
-                                    else "model"))
+                                    source=measured["exit_head"][1] if "exit_head" in
+                                    measured else "model"))
     metrics.append(_metric_from("water_temp", "Water temperature", "temperature",
                                 read["water_temp"], None, al.temp_high_high.limit_c,
                                 note=f"blocking {al.temp_high_high.limit_c:.1f} °C"))

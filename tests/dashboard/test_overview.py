@@ -113,10 +113,14 @@ def test_entrance_and_exit_heads_come_from_the_gauges(app_ctx):
     east = next(f for f in compute_status(app_ctx.site, app_ctx.engine, NOW) if f.id == "east")
     e = app_ctx.engine
     entrance = _raw_latest(e, "east.P40.level") - _raw_latest(e, "east.tailwater_level")
-    exit_head = _raw_latest(e, "east.forebay_level") - _raw_latest(e, "east.exit.crest")
+    # the exit weir draws from the forebay less the trash-rack head loss (forebay to exit)
+    loss = _raw_latest(e, "east.trash_rack_dp")
+    assert 0.0 < loss < 0.2  # the simulator's clean rack (regression value)
+    exit_head = (_raw_latest(e, "east.forebay_level") - loss) - _raw_latest(e, "east.exit.crest")
     assert east.metric("entrance_head").value == pytest.approx(entrance, abs=1e-12)
     assert east.metric("entrance_head").source == "gauge P40 − tailwater"
     assert east.metric("exit_head").value == pytest.approx(exit_head, abs=1e-12)
+    assert east.metric("exit_head").source == "forebay − trash-rack head loss − crest"
     # and the state follows them: out of criteria when either is outside its band
     bands = {k: (east.metric(k).lo, east.metric(k).hi) for k in ("entrance_head", "exit_head")}
     outside = any(not lo <= v <= hi for v, (lo, hi) in
@@ -137,7 +141,9 @@ def test_worst_drop_and_flows_are_those_of_the_solved_profile(app_ctx, demo_site
                 "aux_PS1_pumps": _raw_latest(e, "east.PS1.pumps")}
     settings = {k: min(max(v, ladder.settings[k].low), ladder.settings[k].high)
                 for k, v in settings.items()}
-    p = ladder.solve(_raw_latest(e, "east.forebay_level"), _raw_latest(e, "east.tailwater_level"),
+    # the ladder sees the forebay less the trash-rack head loss (forebay to exit)
+    forebay = _raw_latest(e, "east.forebay_level") - _raw_latest(e, "east.trash_rack_dp")
+    p = ladder.solve(forebay, _raw_latest(e, "east.tailwater_level"),
                      settings, temperature_c=_raw_latest(e, "east.water_temp"))
     assert east.metric("head_drop").value == pytest.approx(
         max(pool.head_drop_m for pool in p.pools[1:]), abs=1e-9)
