@@ -1,12 +1,26 @@
 """Service of the fishway profile page: the live state of a fishway and its solved profile.
 
 :func:`live_state` gathers what the database knows now about one fishway: the newest usable
-(QARTOD pass or not evaluated) forebay, tailwater, pool-gauge and water-temperature readings
-and the actuator positions. A setting comes from its position reading, else from the last
-logged setting (``actuator_settings``), else from the ladder's neutral default, and the
+(QARTOD pass or not evaluated) forebay, tailwater, pool-gauge, trash-rack and water-temperature
+readings and the actuator positions. A setting comes from its position reading, else from the
+last logged setting (``actuator_settings``), else from the ladder's neutral default, and the
 state says which. :func:`solve_live` solves the steady profile from that state
 (:meth:`ops_logic.ladder.Ladder.solve`); :func:`pool_details` lists what the page shows for one
 clicked pool. Everything is SI inside; text is in the site's display units.
+
+The ladder is the fishway *in force* (site file plus supervisors' overrides,
+:func:`db.in_force.effective_site`): :func:`ladder_in_force` gives it, and the state is read
+with it, so an overridden target band is the band its criteria carry; the state also carries
+the fishway's mode in force (a note says when it is not operating).
+
+The forebay the ladder sees is the water level upstream of its exit control: the forebay
+gauge less the trash-rack head loss (the ``trash_rack_dp`` tag measures forebay to exit),
+``forebay − max(loss, 0)``, when that reading is usable, else the forebay gauge itself; a loss
+above :data:`~ops_logic.ladder.MAX_TRASH_RACK_LOSS_M` is refused and the forebay gauge used
+(:func:`ops_logic.ladder.ladder_forebay`). Here a trash-rack reading is usable when it was
+taken within the fishway's ``stale_tag.max_age_s`` of the forebay reading. The state keeps the
+forebay gauge (``forebay_m``) and the level the ladder sees (``ladder_forebay_m``, with
+``ladder_forebay_from`` and a note saying which); :func:`solve_live` solves at the latter.
 
 The setpoints page reuses :func:`live_state` and :func:`solve_live`.
 """
@@ -22,7 +36,9 @@ from dashboard.context import AppContext
 from db.catalog import tags_frame
 from db.dashboard_queries import fishway_db_ids, latest_good_values
 from db.history import latest_actuator_settings
-from ops_logic.ladder import Ladder
+from db.in_force import effective_site
+from ops_logic.ladder import Ladder, ladder_forebay
+from ops_logic.overrides import MODE_LABELS
 from ops_logic.profile import Profile
 from ops_logic.report_format import format_setting, format_value
 from ops_logic.units import UnitSystem
@@ -33,6 +49,7 @@ __all__ = [
     "Measured",
     "fishway_db_id",
     "fishway_options",
+    "ladder_in_force",
     "live_state",
     "local_time_text",
     "now_utc",
@@ -58,7 +75,9 @@ class Measured:
 
 @dataclass(frozen=True)
 class LiveState:
-    """What the database knows now about one fishway (SI)."""
+    """What the database knows now about one fishway (SI). ``forebay_m`` is the forebay
+    gauge, ``ladder_forebay_m`` the level the ladder sees (see the module docstring),
+    ``trash_rack_loss_m`` the loss subtracted (None: none), ``mode`` the mode in force."""
 
     fishway_id: str
     forebay_m: float | None
@@ -71,6 +90,10 @@ class LiveState:
     age_s: float | None
     stale: bool
     notes: tuple[str, ...] = field(default=())
+    ladder_forebay_m: float | None = None
+    ladder_forebay_from: str = ""
+    trash_rack_loss_m: float | None = None
+    mode: str = "operating"
 
     def gauge(self, where: str, *, redundant: bool = False) -> Measured | None:
         for m in self.measured:
@@ -82,6 +105,13 @@ class LiveState:
 def fishway_options(ctx: AppContext) -> list[dict[str, str]]:
     """Dropdown options of the site's fishways (label: name, value: site-file id)."""
     return [{"label": f.name, "value": f.id} for f in ctx.site.fishways]
+
+
+def ladder_in_force(ctx: AppContext, fishway_id: str) -> Ladder:
+    """The ladder of a fishway *in force* (site file plus supervisors' overrides,
+    :func:`db.in_force.effective_site`; cached until the next setting change); ``KeyError``
+    for a fishway the site does not have."""
+    return effective_site(ctx.site, ctx.engine).ladders[fishway_id]
 
 
 def fishway_db_id(ctx: AppContext, fishway_id: str) -> int:
@@ -113,7 +143,8 @@ def _age_text(age_s: float) -> str:
 
 def live_state(ctx: AppContext, fishway_id: str, now: datetime) -> LiveState:
     """The live state of ``fishway_id`` at ``now`` (tz-aware); see the module docstring."""
-    ladder = ctx.ladder(fishway_id)
+    eff = effective_site(ctx.site, ctx.engine)
+    ladder, mode = eff.ladders[fishway_id], eff.modes[fishway_id]
     fw = fishway_db_id(ctx, fishway_id)
     tags = tags_frame(ctx.engine, fw)
     good = latest_good_values(ctx.engine, tags.index.tolist()) if len(tags) else None
@@ -125,7 +156,7 @@ def live_state(ctx: AppContext, fishway_id: str, now: datetime) -> LiveState:
         row = good.loc[tag_id]
         return float(row["value"]), row["ts"].to_pydatetime()
 
-    forebay = tailwater = None
+    forebay = tailwater = rack = None
     temperature = None
     measured: list[Measured] = []
     positions: dict[str, tuple[float, datetime]] = {}
@@ -145,6 +176,8 @@ def live_state(ctx: AppContext, fishway_id: str, now: datetime) -> LiveState:
             measured.append(Measured(str(t["pool_id"]), t["name"], value, ts, role == "pool_b"))
         elif role == "water_temp":
             temperature = value
+        elif role == "trash_rack_dp":
+            rack = (value, ts)
         elif role == "setting" and t["setting"]:
             positions[str(t["setting"])] = (value, ts)
     logged = latest_actuator_settings(ctx.engine, fw)
@@ -172,6 +205,16 @@ def live_state(ctx: AppContext, fishway_id: str, now: datetime) -> LiveState:
                          f"its range; {format_setting(spec, clipped, ctx.units)} is used")
             value = clipped
         settings[name] = value
+    if mode != "operating":
+        notes.append(f"{MODE_LABELS[mode]}: no recommendation while the fishway is not "
+                     "operating")
+    max_age = ladder.fishway.alarms.stale_tag.max_age_s
+    exit_fb = None
+    if forebay is not None:
+        paired = rack is not None and abs((rack[1] - forebay[1]).total_seconds()) <= max_age
+        exit_fb = ladder_forebay(forebay[0], rack[0] if rack is not None and paired else None)
+        notes.append(f"the ladder sees a forebay of "
+                     f"{format_value(exit_fb.level_m, 'length', ctx.units)}: {exit_fb.source}")
     if forebay is None:
         notes.append("no usable forebay reading")
     if tailwater is None:
@@ -181,21 +224,26 @@ def live_state(ctx: AppContext, fishway_id: str, now: datetime) -> LiveState:
     stamps = [x[1] for x in (forebay, tailwater) if x is not None]
     as_of = min(stamps) if stamps else None
     age = (now - as_of).total_seconds() if as_of is not None else None
-    stale = age is None or age > ladder.fishway.alarms.stale_tag.max_age_s
+    stale = age is None or age > max_age
     if age is not None and stale:
         notes.append(f"the levels are {_age_text(age)} old")
     return LiveState(fishway_id, forebay[0] if forebay else None,
                      tailwater[0] if tailwater else None,
                      DEFAULT_TEMPERATURE_C if temperature is None else temperature,
-                     settings, sources, tuple(measured), as_of, age, stale, tuple(notes))
+                     settings, sources, tuple(measured), as_of, age, stale, tuple(notes),
+                     exit_fb.level_m if exit_fb is not None else None,
+                     exit_fb.source if exit_fb is not None else "",
+                     exit_fb.loss_m if exit_fb is not None else None, mode)
 
 
 def solve_live(ladder: Ladder, state: LiveState) -> tuple[Profile | None, str | None]:
-    """The profile at the live state, or ``(None, why not)``."""
-    if state.forebay_m is None or state.tailwater_m is None:
+    """The profile at the live state, or ``(None, why not)``: solved at the forebay the ladder
+    sees (``state.ladder_forebay_m``). ``ladder`` should be the one in force
+    (:func:`ladder_in_force`): its targets are the bands of the profile's criteria."""
+    if state.ladder_forebay_m is None or state.tailwater_m is None:
         return None, "the profile needs a usable forebay and tailwater reading"
     try:
-        return ladder.solve(state.forebay_m, state.tailwater_m, state.settings,
+        return ladder.solve(state.ladder_forebay_m, state.tailwater_m, state.settings,
                             temperature_c=state.temperature_c), None
     except ValueError as exc:
         return None, str(exc)

@@ -4,10 +4,20 @@ effect on every criterion, the what-if solve, and the printable setpoint table.
 Which recommendation: the newest one stored for the fishway (``recommendations`` table,
 written by the ingest service; its ``settings`` payload maps setting names, as in
 :class:`~ops_logic.ladder.Ladder`, to SI values); when none is stored the dashboard computes one
-now with :meth:`~ops_logic.ladder.Ladder.recommend` from the live state, and says so.
+now with :meth:`~ops_logic.ladder.Ladder.recommend` from the live state, and says so. A fishway
+whose mode in force is ``maintenance`` or ``out_of_service`` gets no recommendation (as in the
+ingest): none is shown or computed, and a note says why.
 The predicted effect is always solved here, at the newest usable levels: *before* under the
 current settings, *after* under the recommended ones. Recommendations are advisory
 (:data:`~ops_logic.advisory.ADVISORY_CAUTION`).
+
+The ladder is the fishway *in force* (site file plus supervisors' overrides,
+:func:`dashboard.services.profile.ladder_in_force`), so the criteria carry the bands in force;
+the printable table too. The forebay the ladder sees is the one of the live state
+(:func:`dashboard.services.profile.live_state`: the forebay gauge less the trash-rack head
+loss when that reading is usable, by :func:`ops_logic.ladder.ladder_forebay`, its note saying
+which). The what-if form takes a forebay *gauge* level; given the live loss
+(``trash_rack_loss_m``, as the live state holds it) the ladder sees that level less it.
 """
 
 from __future__ import annotations
@@ -19,9 +29,16 @@ from datetime import datetime
 from urllib.parse import urlencode
 
 from dashboard.context import AppContext
-from dashboard.services.profile import LiveState, fishway_db_id, live_state, local_time_text
+from dashboard.services.profile import (
+    LiveState,
+    fishway_db_id,
+    ladder_in_force,
+    live_state,
+    local_time_text,
+)
 from db.dashboard_queries import latest_recommendation
-from ops_logic.ladder import Ladder, SettingError, SettingSpec
+from db.in_force import effective_site
+from ops_logic.ladder import Ladder, SettingError, SettingSpec, exit_forebay_m
 from ops_logic.profile import Criterion, Profile
 from ops_logic.report_format import format_setting, setting_range_text
 from ops_logic.setpoint_table import level_grid, render_html, setpoint_table
@@ -191,12 +208,15 @@ def _recommended_settings(ladder: Ladder, stored: Mapping[str, object],
 
 def setpoint_view(ctx: AppContext, fishway_id: str, now: datetime) -> SetpointView:
     """Current against recommended settings and their predicted effect; see the module."""
-    ladder = ctx.ladder(fishway_id)
+    ladder = ladder_in_force(ctx, fishway_id)
     state = live_state(ctx, fishway_id, now)
     notes: list[str] = []
     current = ladder.check_settings(state.settings)
-    stored = latest_recommendation(ctx.engine, fishway_db_id(ctx, fishway_id))
-    levels = state.forebay_m is not None and state.tailwater_m is not None
+    operating = state.mode == "operating"
+    stored = latest_recommendation(ctx.engine, fishway_db_id(ctx, fishway_id)) if operating \
+        else None
+    forebay, tailwater = state.ladder_forebay_m, state.tailwater_m
+    levels = forebay is not None and tailwater is not None
     source, rec_id, made_at = "none", None, None
     feasible, binding, reason = None, None, ""
     recommended = dict(current)
@@ -210,9 +230,9 @@ def setpoint_view(ctx: AppContext, fishway_id: str, now: datetime) -> SetpointVi
             if lag > max(10 * ctx.site.ingest.recommend_seconds, 600.0):
                 notes.append(f"the stored recommendation ({local_time_text(made_at, ctx)}) is "
                              "older than the newest levels: it may no longer fit them")
-    elif levels:
+    elif levels and operating:  # not operating: none (the live state's note says why)
         try:
-            rec = ladder.recommend(state.forebay_m, state.tailwater_m, current,  # type: ignore[arg-type]
+            rec = ladder.recommend(forebay, tailwater, current,  # type: ignore[arg-type]
                                    temperature_c=state.temperature_c)
         except ValueError as exc:
             notes.append(f"no recommendation: {exc}")
@@ -223,9 +243,9 @@ def setpoint_view(ctx: AppContext, fishway_id: str, now: datetime) -> SetpointVi
     before = after = None
     if levels:
         try:
-            before = ladder.solve(state.forebay_m, state.tailwater_m, current,  # type: ignore[arg-type]
+            before = ladder.solve(forebay, tailwater, current,  # type: ignore[arg-type]
                                   temperature_c=state.temperature_c)
-            after = ladder.solve(state.forebay_m, state.tailwater_m, recommended,  # type: ignore[arg-type]
+            after = ladder.solve(forebay, tailwater, recommended,  # type: ignore[arg-type]
                                  temperature_c=state.temperature_c)
         except ValueError as exc:
             notes.append(f"no prediction: {exc}")
@@ -316,9 +336,12 @@ def parse_what_if(ladder: Ladder, units: UnitSystem, forebay: str | None,
 
 
 def what_if(ladder: Ladder, units: UnitSystem, forebay: str | None, tailwater: str | None,
-            settings: Mapping[str, str | None], *, temperature_c: float = 10.0
-            ) -> tuple[Profile | None, list[str]]:
-    """The predicted profile for the what-if form, or ``(None, problems)``.
+            settings: Mapping[str, str | None], *, temperature_c: float = 10.0,
+            trash_rack_loss_m: float | None = None) -> tuple[Profile | None, list[str]]:
+    """The predicted profile for the what-if form, or ``(None, problems)``. ``forebay`` is a
+    forebay gauge level; with ``trash_rack_loss_m`` [m] (the live state's loss, forebay to
+    exit) the ladder sees it less that loss (:func:`ops_logic.ladder.exit_forebay_m`; a loss
+    that rule refuses is a problem line), else the level itself.
 
     >>> from ops_logic.site import load_site
     >>> lad = Ladder.from_site(load_site(), "west")
@@ -334,20 +357,29 @@ def what_if(ladder: Ladder, units: UnitSystem, forebay: str | None, tailwater: s
     if problems or fb is None or tw is None:
         return None, problems
     try:
+        fb = exit_forebay_m(fb, trash_rack_loss_m)
+    except ValueError as exc:
+        why = str(exc)
+        return None, [why[:1].upper() + why[1:]]
+    try:
         return ladder.solve(fb, tw, s, temperature_c=temperature_c), []
     except ValueError as exc:
         return None, [str(exc)]
 
 
-_TABLE_CACHE: dict[tuple[int, str], str] = {}
+_TABLE_CACHE: dict[tuple[int, str, int], str] = {}
 
 
 def setpoint_table_html(ctx: AppContext, fishway_id: str, generated: datetime) -> str:
-    """The printable setpoint table of a fishway over its forebay and tailwater ranges
-    (:func:`ops_logic.setpoint_table.render_html`), computed once per dashboard process."""
-    key = (id(ctx.site), fishway_id)
+    """The printable setpoint table of a fishway in force over its forebay and tailwater
+    ranges (:func:`ops_logic.setpoint_table.render_html`), computed once per dashboard process
+    and setting change."""
+    eff = effective_site(ctx.site, ctx.engine)
+    key = (id(ctx.site), fishway_id, eff.version)
     if key not in _TABLE_CACHE:
-        ladder = ctx.ladder(fishway_id)
+        for old in [k for k in _TABLE_CACHE if k[:2] == key[:2]]:
+            del _TABLE_CACHE[old]  # made for an earlier setting change
+        ladder = eff.ladders[fishway_id]
         f = ladder.fishway
         step_fb, step_tw = TABLE_STEPS_M[ctx.units]
         table = setpoint_table(ladder, level_grid(*f.forebay_range, step_fb),

@@ -272,3 +272,100 @@ def test_the_conversion_used_here_matches_the_reference_value():
     per_unit = FTLBF_S_FT3
     assert per_unit == pytest.approx(47.880, abs=1e-3)  # 1 ft·lbf/s/ft³ in W/m³
     assert 4.0 * per_unit == pytest.approx(191.5, abs=0.05)  # REFERENCES.md: 191.5 W/m³
+
+
+# -- the fishway in force and the forebay the ladder sees (on a copy of the seeded database) ----
+SEED_END = NOW  # tests/dashboard/conftest.py: the seeded readings end here
+SEEDED_NOW = SEED_END + timedelta(seconds=20)
+
+
+def _store(engine, rows):
+    from db.catalog import tag_id
+    from db.readings import store_batch
+
+    store_batch(engine, [(tag_id(engine, n), ts, v, f) for n, ts, v, f in rows])
+
+
+def _newest(engine, name):
+    from db.catalog import tag_id
+    from db.dashboard_queries import latest_good_values
+
+    return float(latest_good_values(engine, [tag_id(engine, name)])["value"].iloc[0])
+
+
+@pytest.mark.parametrize(("loss_m", "lowered_m"), [(0.10, 0.10), (-0.02, 0.0)])
+def test_the_profile_sees_the_forebay_less_the_trash_rack_loss(app_ctx, loss_m, lowered_m):
+    from dashboard.services.profile import ladder_in_force, live_state, solve_live
+
+    # a trash-rack reading 10 s after the newest forebay reading (hand calculation: the ladder
+    # sees the forebay gauge less max(loss, 0), the loss measured forebay to exit)
+    _store(app_ctx.engine, [("east.trash_rack_dp", SEED_END + timedelta(seconds=10), loss_m,
+                             1)])
+    s = live_state(app_ctx, "east", SEEDED_NOW)
+    forebay = _newest(app_ctx.engine, "east.forebay_level")
+    assert s.forebay_m == pytest.approx(forebay, abs=1e-12)
+    assert s.ladder_forebay_m == pytest.approx(forebay - lowered_m, abs=1e-12)
+    assert s.trash_rack_loss_m == pytest.approx(max(loss_m, 0.0))
+    assert s.ladder_forebay_from == "forebay − trash-rack head loss"
+    assert any(n.startswith("the ladder sees a forebay of") and n.endswith(
+        s.ladder_forebay_from) for n in s.notes)
+    profile, why = solve_live(ladder_in_force(app_ctx, "east"), s)
+    assert why is None and profile.forebay_m == pytest.approx(forebay - lowered_m, abs=1e-12)
+
+
+@pytest.mark.parametrize(("rows", "why"), [
+    # a loss reading an hour after the newest forebay reading is not paired with it
+    ([("east.trash_rack_dp", SEED_END + timedelta(hours=1), 0.10, 1)],
+     "forebay (no usable trash-rack head loss)"),
+    ([("east.trash_rack_dp", SEED_END + timedelta(seconds=10), 0.10, 4)],  # failed QC:
+     "forebay − trash-rack head loss"),  # the seeded reading before it is used
+    ([("east.trash_rack_dp", SEED_END + timedelta(seconds=10), 2.5, 1)],
+     "forebay (trash-rack head loss 2.5 m refused"),
+])
+def test_which_loss_reading_the_profile_uses(app_ctx, rows, why):
+    from dashboard.services.profile import live_state
+
+    seeded = _newest(app_ctx.engine, "east.trash_rack_dp")
+    _store(app_ctx.engine, rows)
+    s = live_state(app_ctx, "east", SEEDED_NOW + timedelta(hours=1))
+    assert s.ladder_forebay_from.startswith(why)
+    if s.trash_rack_loss_m is not None:
+        assert s.ladder_forebay_m == pytest.approx(s.forebay_m - seeded, abs=1e-12)
+        return
+    assert s.ladder_forebay_m == pytest.approx(s.forebay_m, abs=1e-12)
+    assert s.trash_rack_loss_m is None and s.ladder_forebay_from.startswith(why)
+
+
+def test_a_supervisors_band_is_the_band_of_the_profile_criteria(app_ctx):
+    from dashboard.services.profile import (
+        fishway_db_id,
+        ladder_in_force,
+        live_state,
+        pool_details,
+        solve_live,
+    )
+    from db.dashboard_queries import record_setting_change
+
+    site_max = app_ctx.ladder("east").fishway.targets.pool_head_drop.max
+    record_setting_change(app_ctx.engine, fishway_db_id(app_ctx, "east"),
+                          "targets.pool_head_drop.max", SEED_END, action="set", set_by="sup1",
+                          old_value=site_max, new_value=0.33)
+    ladder = ladder_in_force(app_ctx, "east")
+    assert ladder.fishway.targets.pool_head_drop.max == 0.33 != site_max
+    profile, _ = solve_live(ladder, live_state(app_ctx, "east", SEEDED_NOW))
+    assert {c.max for c in profile.criteria if c.name.startswith("head_drop:")} == {0.33}
+    rows = dict(pool_details(ladder, profile, 5, None, "us"))
+    # 0.33 m = 1.08 ft (1 ft = 0.3048 m), with the SI value beside
+    assert rows["Head drop from the pool above"].endswith(f"– {0.33 / FT:.2f} ft (0.330 m))")
+
+
+def test_a_fishway_in_maintenance_says_so(app_ctx):
+    from dashboard.services.profile import fishway_db_id, live_state
+    from db.dashboard_queries import record_setting_change
+
+    record_setting_change(app_ctx.engine, fishway_db_id(app_ctx, "west"), "mode", SEED_END,
+                          action="set", set_by="sup1", old_text="operating",
+                          new_text="maintenance")
+    s = live_state(app_ctx, "west", SEEDED_NOW)
+    assert s.mode == "maintenance"
+    assert any(n.startswith("Maintenance (dewatered): no recommendation") for n in s.notes)

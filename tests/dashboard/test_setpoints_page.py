@@ -207,3 +207,87 @@ def test_setpoint_table_route_is_gated_and_prints_the_grid(fresh, raw_site):
 def test_doctests(name):
     result = doctest.testmod(importlib.import_module(name), optionflags=doctest.ELLIPSIS)
     assert result.attempted > 0 and result.failed == 0
+
+
+# -- the fishway in force and the forebay the ladder sees (on a copy of the seeded database) ----
+SEEDED_NOW = NOW + timedelta(seconds=20)  # tests/dashboard/conftest.py: seeded up to NOW
+
+
+def _store(engine, rows):
+    from db.catalog import tag_id
+    from db.readings import store_batch
+
+    store_batch(engine, [(tag_id(engine, n), ts, v, f) for n, ts, v, f in rows])
+
+
+def _change(ctx, fishway, key, **values):
+    from dashboard.services.profile import fishway_db_id
+    from db.dashboard_queries import record_setting_change
+
+    record_setting_change(ctx.engine, fishway_db_id(ctx, fishway), key, NOW, action="set",
+                          set_by="sup1", **values)
+
+
+def test_a_supervisors_band_is_the_band_of_the_criteria(app_ctx):
+    from dashboard.services.setpoints import setpoint_view
+
+    site_max = app_ctx.ladder("east").fishway.targets.pool_head_drop.max
+    before = setpoint_view(app_ctx, "east", SEEDED_NOW)
+    row = next(c for c in before.criteria if c.name == "head_drop:max")
+    assert row.max == pytest.approx(site_max, abs=1e-12)
+    _change(app_ctx, "east", "targets.pool_head_drop.max", old_value=site_max, new_value=0.33)
+    view = setpoint_view(app_ctx, "east", SEEDED_NOW)
+    drops = [c for c in view.criteria if c.name.startswith("head_drop:")]
+    assert drops and {c.max for c in drops} == {0.33}  # the band set, every row
+    assert {c.max for c in view.after.criteria if c.name.startswith("head_drop:")} == {0.33}
+    # each row is judged against it: met exactly when at or below 0.33 m
+    assert all(c.ok_after is (c.after <= 0.33 + 1e-9) for c in drops if c.after is not None)
+
+
+def test_the_predictions_see_the_forebay_less_the_trash_rack_loss(app_ctx):
+    from dashboard.services.setpoints import setpoint_view
+
+    _store(app_ctx.engine, [("east.trash_rack_dp", NOW + timedelta(seconds=10), 0.10, 1)])
+    view = setpoint_view(app_ctx, "east", SEEDED_NOW)
+    s = view.state
+    # hand calculation: the ladder sees the forebay gauge less the 0.10 m loss
+    assert s.ladder_forebay_m == pytest.approx(s.forebay_m - 0.10, abs=1e-12)
+    assert view.before.forebay_m == pytest.approx(s.forebay_m - 0.10, abs=1e-12)
+    assert view.after.forebay_m == pytest.approx(s.forebay_m - 0.10, abs=1e-12)
+    head = next(c for c in view.criteria if c.name == "exit_head")
+    assert head.before == pytest.approx(s.forebay_m - 0.10 - s.settings["exit_crest_m"],
+                                        abs=1e-12)
+    assert view.source == "computed"  # from the same level (no stored recommendation here)
+    assert any(n.endswith("forebay − trash-rack head loss") for n in s.notes)
+
+
+@pytest.mark.parametrize("mode", ["maintenance", "out_of_service"])
+def test_a_fishway_out_of_operation_gets_no_recommendation(app_ctx, mode):
+    from dashboard.services.profile import fishway_db_id
+    from dashboard.services.setpoints import setpoint_view
+    from db.history import record_recommendation
+
+    record_recommendation(app_ctx.engine, fishway_db_id(app_ctx, "west"), NOW, inputs={},
+                          settings={"aux_G2_opening_pct": 50.0}, predicted={},
+                          binding_constraint=None, feasible=True)
+    _change(app_ctx, "west", "mode", old_text="operating", new_text=mode)
+    view = setpoint_view(app_ctx, "west", SEEDED_NOW)
+    assert view.source == "none" and view.recommendation_id is None and not view.changes
+    assert any("no recommendation while the fishway is not operating" in n
+               for n in view.state.notes)
+
+
+@pytest.mark.parametrize(("loss_m", "want_m", "problems"), [
+    (None, 253.6 * FT, []),
+    (0.10, 253.6 * FT - 0.10, []),  # hand calculation: the gauge level less the live loss
+    (1.5, None, ["Trash-rack head loss 1.5 m is above the 1 m taken as real (a blocked rack "
+                 "or a failed gauge)"]),
+])
+def test_what_if_with_the_live_trash_rack_loss(fresh, loss_m, want_m, problems):
+    from dashboard.services.setpoints import what_if
+
+    profile, got = what_if(fresh.ctx.ladder("east"), "us", "253.6", "215", {},
+                           trash_rack_loss_m=loss_m)
+    assert got == problems
+    if want_m is not None:
+        assert profile.forebay_m == pytest.approx(want_m, abs=1e-12)
