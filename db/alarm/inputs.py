@@ -26,10 +26,12 @@ position tag's newest usable reading — and solves the **current profile**
 (:meth:`ops_logic.ladder.Ladder.solve`, warm-started from the previous cycle's) from the usable
 forebay and tailwater gauges, the water temperature (else the solver's 10 °C) and the actual
 positions (position tags, clipped to each actuator's range, pump counts rounded; else the
-logged setting). Without a usable forebay or tailwater, or a position for every setting, there
-is no profile and the hydraulic rules say so (``not_evaluated``); the reason is in
-:attr:`InputReader.problems`. A *usable* reading has flag 1 or 2 and is no older than the
-fishway's ``stale_tag.max_age_s``.
+logged setting). The ladder solved is the site file's: a supervisor's target override does not
+reach the bands of this profile's criteria (their alarm-limit and mode changes reach the engine
+through :mod:`db.alarm.overrides`). Without a usable forebay or tailwater, or a position for
+every setting, there is no profile and the hydraulic rules say so (``not_evaluated``); the
+reason is in :attr:`InputReader.problems`. A *usable* reading has flag 1 or 2 and is no older
+than the fishway's ``stale_tag.max_age_s``.
 
 The forebay the ladder sees is the water level upstream of its exit control: the forebay
 gauge less the trash-rack head loss (the ``trash_rack_dp`` tag measures forebay to exit),
