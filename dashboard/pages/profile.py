@@ -18,6 +18,7 @@ from dashboard.context import current
 from dashboard.controls import chosen_fishway, fishway_head, picker_inputs, refresh_timer
 from dashboard.figures.profile import figure_patch, headline, profile_figure
 from dashboard.services.profile import (
+    ladder_in_force,
     live_state,
     local_time_text,
     now_utc,
@@ -82,7 +83,7 @@ def render(fishway: str, _n: int | None, selected: dict | None,
     """Draw the profile (a fishway change, or nothing drawn yet) or patch its data (a
     refresh of the fishway already drawn)."""
     app = current()
-    ladder = app.ladder(fishway)
+    ladder = ladder_in_force(app, fishway)  # the site file with supervisors' overrides
     state = live_state(app, fishway, now_utc())
     profile, why = solve_live(ladder, state)
     if profile is None:
@@ -102,7 +103,7 @@ def render(fishway: str, _n: int | None, selected: dict | None,
 def select_pool(click: dict | None, fishway: str) -> tuple[Any, Any, Any]:
     """Show the clicked pool's details and outline it in the side view."""
     app = current()
-    ladder = app.ladder(fishway)
+    ladder = ladder_in_force(app, fishway)  # the site file with supervisors' overrides
     points = (click or {}).get("points") or []
     index = points[0].get("customdata") if points else None
     if isinstance(index, list):

@@ -17,7 +17,7 @@ from dashboard import auth
 from dashboard.context import current
 from dashboard.controls import chosen_fishway, fishway_head, picker_inputs, refresh_timer
 from dashboard.figures.profile import profile_figure
-from dashboard.services.profile import local_time_text, now_utc
+from dashboard.services.profile import ladder_in_force, live_state, local_time_text, now_utc
 from dashboard.services.setpoints import (
     CriterionRow,
     SetpointView,
@@ -255,9 +255,11 @@ def predict(_clicks: int | None, fishway: str, forebay: str | None, tailwater: s
             values: list[str | None], ids: list[dict]) -> tuple[Any, Any, Any]:
     """Solve the what-if profile: criteria table and a small side view."""
     app = current()
-    ladder = app.ladder(fishway)
+    ladder = ladder_in_force(app, fishway)  # the site file with supervisors' overrides
     settings = {i["name"]: v for i, v in zip(ids, values, strict=True)}
-    profile, problems = what_if(ladder, app.units, forebay, tailwater, settings)
+    loss = live_state(app, fishway, now_utc()).trash_rack_loss_m  # the rack as it is now
+    profile, problems = what_if(ladder, app.units, forebay, tailwater, settings,
+                                trash_rack_loss_m=loss)
     if profile is None:
         return (html.Ul([html.Li(p) for p in problems], className="form-error"), {},
                 {"display": "none"})

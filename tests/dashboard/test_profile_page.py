@@ -369,3 +369,25 @@ def test_a_fishway_in_maintenance_says_so(app_ctx):
     s = live_state(app_ctx, "west", SEEDED_NOW)
     assert s.mode == "maintenance"
     assert any(n.startswith("Maintenance (dewatered): no recommendation") for n in s.notes)
+
+
+def test_the_page_draws_with_the_fishway_in_force(app_ctx, page_module, monkeypatch):
+    """The render callback takes the ladder in force: a supervisor's pool-drop maximum of
+    0.33 m (1.08 ft; 1 ft = 0.3048 m) is the band of the page's largest-pool-drop bullet."""
+    from dashboard.services.profile import fishway_db_id
+    from db.dashboard_queries import record_setting_change
+
+    page = page_module("profile")
+    monkeypatch.setattr(page, "now_utc", lambda: SEEDED_NOW)
+    site_max = app_ctx.ladder("east").fishway.targets.pool_head_drop.max
+    record_setting_change(app_ctx.engine, fishway_db_id(app_ctx, "east"),
+                          "targets.pool_head_drop.max", SEED_END, action="set", set_by="sup1",
+                          old_value=site_max, new_value=0.33)
+    token = _triggered("profile-fishway.value")
+    try:
+        _, _, bullets, drawn = page.render("east", None, None, None)
+    finally:
+        context_value.reset(token)
+    assert drawn == "east"
+    drop = next(b for b in bullets if "Largest pool drop" in str(b))
+    assert f"{0.33 / FT:.2f}" in str(drop) and f"{site_max / FT:.2f} ft" not in str(drop)
