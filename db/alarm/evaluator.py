@@ -36,6 +36,7 @@ from sqlalchemy.engine import Engine
 from db.alarm.inputs import InputReader
 from db.alarm.overrides import read_overrides, sync_overrides, table_version
 from db.alarm.store import AlarmStore, SiteIds
+from db.in_force import effective_site
 from db.notify import EmailNotifier
 from ops_logic.alarms.engine import FloodStatus
 from ops_logic.alarms.states import AlarmEvent
@@ -76,17 +77,35 @@ class AlarmEvaluator:
         self.not_evaluated: tuple[tuple[str, str], ...] = ()
         self.problems: tuple[str, ...] = ()
         self._overrides_version: int | None = None
+        self._targets_version: int | None = None
+        self._site_in_force = site
         self._overrides: dict = {}
         self._logged: tuple[set, set] = (set(), set())
 
     def __call__(self, now: datetime, context: Any = None) -> list[AlarmEvent]:
         return self.evaluate(now)
 
+    def _targets_in_force(self) -> Site:
+        """The site with each fishway's targets as in force (supervisors' target overrides;
+        :func:`db.in_force.effective_site`): the bands the rules and the solved profile's
+        criteria judge against. Alarm limits and modes reach the engine as its own events
+        (:mod:`db.alarm.overrides`), so only the targets are taken from here."""
+        eff = effective_site(self.site, self.store.engine)
+        if eff.version != self._targets_version:
+            fishways = [f.model_copy(update={"targets": eff.fishways[f.id].targets})
+                        for f in self.site.fishways]
+            self._site_in_force = self.site.model_copy(update={"fishways": fishways})
+            self.reader.use_fishways(fishways)
+            self._targets_version = eff.version
+        return self._site_in_force
+
     def evaluate(self, now: datetime) -> list[AlarmEvent]:
         """Evaluate every alarm at ``now`` (tz-aware) and store the result; return the events."""
+        site = self._targets_in_force()
         inputs = self.reader.read(now)
         problems = list(self.reader.problems)
         with self.store.session(now) as s:
+            s.alarm_engine.site = site  # the rules judge against the targets in force
             version = table_version(s.conn)
             if version != self._overrides_version:
                 self._overrides = read_overrides(s.conn, self.store.ids.fishways)

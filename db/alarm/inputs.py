@@ -26,9 +26,10 @@ position tag's newest usable reading — and solves the **current profile**
 (:meth:`ops_logic.ladder.Ladder.solve`, warm-started from the previous cycle's) from the usable
 forebay and tailwater gauges, the water temperature (else the solver's 10 °C) and the actual
 positions (position tags, clipped to each actuator's range, pump counts rounded; else the
-logged setting). The ladder solved is the site file's: a supervisor's target override does not
-reach the bands of this profile's criteria (their alarm-limit and mode changes reach the engine
-through :mod:`db.alarm.overrides`). Without a usable forebay or tailwater, or a position for
+logged setting). The ladder solved carries the targets in force (the evaluator hands them over,
+:meth:`InputReader.use_fishways`), so a supervisor's target override sets the bands of this
+profile's criteria; alarm-limit and mode changes reach the engine through
+:mod:`db.alarm.overrides`. Without a usable forebay or tailwater, or a position for
 every setting, there is no profile and the hydraulic rules say so (``not_evaluated``); the
 reason is in :attr:`InputReader.problems`. A *usable* reading has flag 1 or 2 and is no older
 than the fishway's ``stale_tag.max_age_s``.
@@ -48,7 +49,7 @@ The fishway's mode is not an input here: it is kept in the engine state (operato
 from __future__ import annotations
 
 import math
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from datetime import datetime, timedelta
 from zoneinfo import ZoneInfo
 
@@ -66,7 +67,7 @@ from ops_logic.alarms.temperature import seven_day_average_daily_max
 from ops_logic.ladder import Ladder, SettingError, ladder_forebay
 from ops_logic.profile import Profile
 from ops_logic.recommend import Recommendation, SettingChange
-from ops_logic.site import Site
+from ops_logic.site import Fishway, Site
 from ops_logic.tags import TagDef
 
 __all__ = ["DEFAULT_TEMPERATURE_C", "RECOMMENDATION_MAX_AGE_CYCLES", "TEMPERATURE_REFRESH_S",
@@ -121,6 +122,12 @@ class InputReader:
         self._temp: dict[str, float | None] = {}
         self.problems: list[str] = []
         """Why a profile, a 7DADM or a recommendation is missing, after the last read."""
+
+    def use_fishways(self, fishways: Sequence[Fishway]) -> None:
+        """Solve with these fishway models from now on (the targets in force; same ids)."""
+        self.ladders = {f.id: Ladder(f, units=self.site.site.units) for f in fishways}
+        self._profiles.clear()  # warm starts and cached profiles belong to the old ladders
+        self._profile_keys.clear()
 
     # -- queries (built once: SQLAlchemy then reuses their compiled form) -------------------
     def _statements(self) -> None:
