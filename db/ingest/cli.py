@@ -99,6 +99,8 @@ def status_line(service: IngestService, now: datetime) -> str:
                      f"(binding {rec.binding})")
     if t["skipped"]:
         parts.append(f"{t['skipped']} recommender cycle(s) without usable inputs")
+    if t.get("not_operating"):
+        parts.append(f"{t['not_operating']} cycle(s) of fishways not operating (no advice)")
     return " | ".join(parts)
 
 
@@ -158,13 +160,14 @@ def _once(service: IngestService, now: datetime) -> int:
         folder = service.backup_dir or path.parent / "backups"
         if not (folder / f"fishway-{now:%Y%m%d}.sqlite").exists():
             service.backup_once(now)
-    recs = ", ".join(f"{o.fishway_id} {'stored' if o.recommendation_id else 'none'}"
+    recs = ", ".join(f"{o.fishway_id} " + ("stored" if o.recommendation_id else "none" if
+                                           o.failed else o.mode.replace("_", " "))
                      for o in outcomes)
     print(f"fishway ingest: {service.site.site.name}: {poll.stored:,} new reading(s) "
           f"({poll.backfilled:,} backfilled, {poll.reflagged} re-flagged); "
           f"recommendations: {recs}")
     for o in outcomes:
-        if o.skipped:
+        if o.skipped and o.failed:  # a fishway in maintenance is no problem to report
             print(f"fishway ingest: {o.skipped}", file=sys.stderr)
     for feed_id, error in poll.errors.items():
         print(f"fishway ingest: feed {feed_id}: {error}", file=sys.stderr)
