@@ -6,6 +6,20 @@ next cycle on. The overrides are the newest ``setting_changes`` row of each key
 (:func:`db.dashboard_queries.setting_overrides`); :func:`ops_logic.overrides.apply_overrides`
 lays them over the site file's values and reports those that no longer validate. The result is
 cached until the next setting change (its id is the cache's version).
+
+>>> import pathlib, tempfile
+>>> from db.engine import make_engine
+>>> from db.migrate import upgrade
+>>> from db.site_sync import sync_site
+>>> from ops_logic.site import load_site
+>>> site = load_site()
+>>> engine = make_engine(sqlite_path=pathlib.Path(tempfile.mkdtemp()) / "f.sqlite")
+>>> _ = upgrade(engine), sync_site(engine, site)
+>>> eff = effective_site(site, engine)
+>>> eff.version, eff.modes, eff.problems       # no change made yet: the site file's
+(0, {'east': 'operating', 'west': 'operating'}, ())
+>>> effective_site(site, engine) is eff        # cached until the next change
+True
 """
 
 from __future__ import annotations

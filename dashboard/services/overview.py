@@ -26,7 +26,8 @@ from datetime import UTC, datetime
 from typing import Any
 
 from db.status import FishwayStatus, read_status
-from db.status.judge import find_tag, tag_catalogue, worst_criterion
+from db.status.cache import find_tag, tag_catalogue
+from db.status.judge import worst_criterion
 from db.status.model import (
     STALE_POLLS,
     STATE_LABELS,

@@ -34,21 +34,18 @@ the dashboard reads the stored result: the solves run once per cycle, not once p
 from __future__ import annotations
 
 import math
-import threading
-import time
-from collections import OrderedDict
 from collections.abc import Mapping
 from dataclasses import dataclass
-from datetime import datetime, timedelta
+from datetime import datetime
 from typing import Any
 
 import pandas as pd
 
-from db.catalog import tags_frame
-from db.dashboard_queries import hourly_maxima, latest_good_values, latest_recommendation
+from db.dashboard_queries import latest_good_values, latest_recommendation
 from db.history import latest_actuator_settings
 from db.in_force import EffectiveSite, effective_site
 from db.readings import latest_values
+from db.status.cache import cached_solve, find_tag, tag_catalogue, temp_7dadm
 from db.status.model import (
     DEFAULT_TEMP_C,
     MODEL_GAUGE_TOLERANCE_M,
@@ -62,79 +59,14 @@ from db.status.model import (
     age_text,
     metric_band_text,
 )
-from ops_logic.alarms.temperature import seven_day_average_daily_max
 from ops_logic.display import format_value
 from ops_logic.ladder import Ladder, SettingSpec, ladder_forebay
 from ops_logic.overrides import MODE_LABELS
-from ops_logic.profile import Criterion, Profile
+from ops_logic.profile import Criterion
 from ops_logic.site import AdjustableWeirExit, Fishway, Site
-from ops_logic.tags import TagDef, site_tags
+from ops_logic.tags import TagDef
 
-__all__ = ["TEMP_7DADM_TTL_S", "clear_caches", "compute_status", "find_tag", "tag_catalogue",
-           "worst_criterion"]
-
-_SOLVE_CACHE_SIZE = 64
-_CATALOGUE_TTL_S = 300.0
-TEMP_7DADM_TTL_S = 600.0
-"""The 7DADM (a seven-day statistic) is recomputed at most this often [s]."""
-
-
-
-# -- catalogue and solve caches -------------------------------------------------------------------
-_lock = threading.Lock()
-# Cache entries keep the objects they were made for and are used only for those very objects
-# (an id can be reused once an object is gone).
-_catalogue: dict[tuple, tuple[Site, Any, float, dict[str, tuple[TagDef, int, float]]]] = {}
-_solves: OrderedDict[tuple, tuple[Ladder, Profile | Exception]] = OrderedDict()
-_t7: dict[tuple, float | None] = {}
-_last: dict[int, tuple[Ladder, Profile]] = {}
-"""The newest profile of each ladder: the warm start of its next solve."""
-
-
-def tag_catalogue(site: Site, engine: Any) -> dict[str, tuple[TagDef, int, float]]:
-    """Tag name → (definition, database id, poll period [s]) for the site's tags that exist
-    in the database (cached for a few minutes)."""
-    key = (id(engine), id(site))
-    now = time.monotonic()
-    hit = _catalogue.get(key)
-    if hit is not None and hit[0] is site and hit[1] is engine and now - hit[2] < \
-            _CATALOGUE_TTL_S:
-        return hit[3]
-    frame = tags_frame(engine)
-    by_name = {str(n): (int(i), float(p)) for i, n, p in
-               zip(frame.index, frame["name"], frame["poll_period_s"], strict=True)}
-    out = {t.name: (t, *by_name[t.name]) for t in site_tags(site) if t.name in by_name}
-    with _lock:
-        _catalogue[key] = (site, engine, now, out)
-    return out
-
-
-def _solve(ladder: Ladder, version: int, forebay: float, tailwater: float,
-           settings: Mapping[str, float], temp_c: float) -> Profile:
-    key = (ladder.id, id(ladder), version, round(forebay, 3), round(tailwater, 3),
-           tuple(sorted((k, round(v, 3)) for k, v in settings.items())), round(temp_c, 1))
-    with _lock:
-        entry = _solves.get(key)
-        hit = entry[1] if entry is not None and entry[0] is ladder else None
-        if hit is not None:
-            _solves.move_to_end(key)
-    if hit is None:
-        prev = _last.get(id(ladder))
-        warm = prev[1] if prev is not None and prev[0] is ladder else None
-        try:
-            hit = ladder.solve(forebay, tailwater, settings, temperature_c=temp_c, warm=warm)
-        except ValueError as exc:  # SettingError included: refused inputs
-            hit = exc
-        with _lock:
-            _solves[key] = (ladder, hit)
-            if isinstance(hit, Profile) and hit.state == "flowing":
-                _last[id(ladder)] = (ladder, hit)
-            while len(_solves) > _SOLVE_CACHE_SIZE:
-                _solves.popitem(last=False)
-    if isinstance(hit, Exception):
-        raise hit
-    return hit
-
+__all__ = ["compute_status", "worst_criterion"]
 
 # -- judging readings --------------------------------------------------------------------------
 _Row = tuple[int, float, int]  # (epoch ms, value, flag)
@@ -263,31 +195,6 @@ class _Inputs:
     now_ms: int
 
 
-_by_role: dict[int, tuple[Mapping, dict[tuple[str, str], list[tuple[TagDef, int, float]]]]] = {}
-"""Per catalogue mapping of :func:`tag_catalogue`: its entries grouped by (fishway, role)."""
-
-
-def find_tag(tags: Mapping[str, tuple[TagDef, int, float]], fishway_id: str, role: str,
-          **match: str | None) -> tuple[TagDef, int, float] | None:
-    """The first entry of ``tags`` (in its order) of this fishway and role whose fields equal
-    ``match``. The entries are grouped by (fishway, role) once per catalogue mapping: this is
-    asked some twenty times a refresh."""
-    hit = _by_role.get(id(tags))
-    if hit is None or hit[0] is not tags:
-        groups: dict[tuple[str, str], list[tuple[TagDef, int, float]]] = {}
-        for entry in tags.values():
-            groups.setdefault((entry[0].fishway_id, entry[0].role), []).append(entry)
-        with _lock:
-            if len(_by_role) > 16:
-                _by_role.clear()
-            _by_role[id(tags)] = (tags, groups)
-        hit = (tags, groups)
-    for entry in hit[1].get((fishway_id, role), ()):
-        if all(getattr(entry[0], k) == v for k, v in match.items()):
-            return entry
-    return None
-
-
 def _positions(ladder: Ladder, f: Fishway, inp: _Inputs, engine: Any, db_id: int | None,
                units: str) -> tuple[dict[str, float], list[str], list[str]]:
     """Current setting values, the settings without a known position, out-of-range notes."""
@@ -356,30 +263,6 @@ def _adjustment(ladder: Ladder, f: Fishway, rec: dict | None, current: Mapping[s
                       stale=stale)
 
 
-def _temp_7dadm(engine: Any, entry: tuple[TagDef, int, float] | None, now: datetime,
-                time_zone: str) -> float | None:
-    """The newest 7DADM (today's or yesterday's) from the hourly rollups' maxima, or None."""
-    if entry is None:
-        return None
-    key = (str(engine.url), entry[1], int(now.timestamp() // TEMP_7DADM_TTL_S))
-    if key in _t7:
-        return _t7[key]
-    ts_ms, vmax = hourly_maxima(engine, entry[1], now - timedelta(days=8), now)
-    out = None
-    if ts_ms.size:
-        series = seven_day_average_daily_max(
-            pd.DatetimeIndex(ts_ms.astype("datetime64[ms]")).tz_localize("UTC"), vmax,
-            time_zone=time_zone).dropna()
-        today = pd.Timestamp(now).tz_convert(time_zone).date()
-        if len(series) and series.index[-1] >= today - timedelta(days=1):
-            out = float(series.iloc[-1])
-    with _lock:
-        if len(_t7) > 256:
-            _t7.clear()
-        _t7[key] = out
-    return out
-
-
 def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any,
              now: datetime) -> FishwayStatus:
     f, ladder = eff.fishways[fid], eff.ladders[fid]
@@ -407,7 +290,7 @@ def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any
     else:
         assert exit_fb is not None  # the forebay reading is usable here
         try:
-            profile = _solve(ladder, eff.version, exit_fb.level_m, tw.value, positions,
+            profile = cached_solve(ladder, eff.version, exit_fb.level_m, tw.value, positions,
                              temp_c)
         except ValueError as exc:
             if state != "out_of_service":
@@ -493,7 +376,7 @@ def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any
     metrics.append(_metric_from("water_temp", "Water temperature", "temperature",
                                 read["water_temp"], None, al.temp_high_high.limit_c,
                                 note=f"blocking {al.temp_high_high.limit_c:.1f} °C"))
-    t7 = _temp_7dadm(engine, find_tag(inp.tags, fid, "water_temp"), now, site.site.time_zone)
+    t7 = temp_7dadm(engine, find_tag(inp.tags, fid, "water_temp"), now, site.site.time_zone)
     limit7 = al.temp_high_limit_c
     metrics.append(model_metric("temp_7dadm", "Temperature 7DADM", "temperature", None, t7,
                                 None, limit7, None, f"criterion {limit7:.0f} °C",
@@ -558,14 +441,3 @@ def compute_status(site: Site, engine: Any, now: datetime) -> tuple[FishwayStatu
     good = _rows(latest_good_values(engine, bad)) if bad else {}
     inp = _Inputs(tags, latest, good, now_ms)
     return tuple(_fishway(site, eff, f.id, inp, engine, now) for f in site.fishways)
-
-
-def clear_caches() -> None:
-    """Forget the cached solves, warm starts, catalogue and 7DADM values (tests, benchmarks:
-    every computation from scratch)."""
-    with _lock:
-        _solves.clear()
-        _last.clear()
-        _catalogue.clear()
-        _t7.clear()
-        _by_role.clear()

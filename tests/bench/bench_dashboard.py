@@ -233,7 +233,7 @@ def bench_callbacks(path: Path, app, engine, runs: int) -> None:
     from dashboard.figures.overview import clear_outputs, refresh_outputs
     from dashboard.services import overview as service
     from db.status import update_status
-    from db.status.judge import clear_caches
+    from db.status.cache import clear_caches
     from db.trends import trend
 
     page = sys.modules["pages.overview"]
@@ -435,7 +435,7 @@ def load_run(app, layout_ids: dict[str, list[dict]], seconds: float, app_ctx_eng
         from dashboard.context import current
         from dashboard.figures.overview import clear_outputs
         from db.status import update_status
-        from db.status.judge import clear_caches
+        from db.status.cache import clear_caches
 
         site = current().site
         while not stop_writer.wait(10.0):

@@ -8,7 +8,8 @@ import pytest
 
 MODULES = ["db.engine", "db.types", "db.arrays", "db.migrate", "db.partitions", "db.readings",
            "db.rollups", "db.trends", "db.retention", "db.catalog", "db.history", "db.alarms",
-           "db.feed_health", "db.status.model", "db.status.judge", "db.status.store"]
+           "db.feed_health", "db.status.model", "db.status.judge", "db.status.store",
+           "db.in_force"]
 
 
 @pytest.mark.parametrize("name", MODULES)

@@ -15,7 +15,7 @@ from db.alarms import record_alarm_event
 from db.readings import store_batch
 from db.site_sync import sync_site
 from db.status import compute_status, read_status, update_status
-from db.status.judge import clear_caches
+from db.status.cache import clear_caches
 from db.status.store import store_status
 from ops_logic.site import load_site
 from simulator.history import generate_history

@@ -19,7 +19,7 @@ from db.in_force import clear_cache
 from db.readings import store_batch
 from db.site_sync import sync_site
 from db.status import compute_status
-from db.status.judge import clear_caches
+from db.status.cache import clear_caches
 from ops_logic.display import format_value
 from ops_logic.ladder import Ladder
 from ops_logic.site import Site, load_site
