@@ -2,7 +2,10 @@
 
 :func:`setpoint_table` runs :func:`~ops_logic.recommend.recommend` with no current settings
 (so no rate limits: each cell is the setting to aim for from any starting point) at every
-(forebay, tailwater) pair and returns one tidy DataFrame, one row per cell, forebay-major:
+(forebay, tailwater) pair and returns one tidy DataFrame, one row per cell, forebay-major.
+The forebay of a cell is the level the ladder's exit sees: with a clean trash rack it is the
+forebay gauge; with a head loss across the rack, read the table at the gauge less that loss
+(:func:`ops_logic.ladder.ladder_forebay`, as the live recommender does).
 
 =============================  ==================================================================
 column                         meaning
