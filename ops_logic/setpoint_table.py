@@ -236,7 +236,9 @@ def render_html(table: pd.DataFrame, ladder: Ladder, *, site_name: str,
                   f"<span class='bar'></span> {_setting_text(spec, hi, units)} {esc(unit)} "
                   "(actuator range)</span><span><span class='swatch'></span> hatched: no "
                   "setting meets every criterion at these levels (the value shown is the "
-                  "recommender's best compromise; see the tooltip)</span></div>")
+                  "recommender's best compromise; see the tooltip)</span><span>forebay rows: "
+                  "the level behind the trash rack (the gauge less the rack's head loss)"
+                  "</span></div>")
         sections.append(f"<section>{head}<h2>{esc(spec.label)} — <code>{esc(name)}</code> "
                         f"[{esc(unit)}]</h2>{legend}<table class='grid'>{''.join(rows)}"
                         "</table></section>")
