@@ -378,3 +378,8 @@ class StatusMetric(Base):
     source: Mapped[str] = mapped_column(sa.String(100), server_default="")
     text: Mapped[str] = mapped_column(sa.String(60), server_default="")
     band_text: Mapped[str] = mapped_column(sa.String(200), server_default="")
+    band_left_pct: Mapped[float | None] = mapped_column(sa.Double)
+    band_width_pct: Mapped[float | None] = mapped_column(sa.Double)
+    target_pct: Mapped[float | None] = mapped_column(sa.Double)
+    value_pct: Mapped[float | None] = mapped_column(sa.Double)
+    off_scale: Mapped[bool] = mapped_column(sa.Boolean, server_default=sa.false())

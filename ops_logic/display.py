@@ -16,15 +16,30 @@ power densities; temperatures are °C, dissolved oxygen mg/L.
 ('—', '8.25 mg/L')
 >>> round(parse_value("1.2", "length", "us"), 5), round(parse_value("0.4 m", "length", "us"), 5)
 (0.36576, 0.4)
+
+A *bullet indicator* is a horizontal track with the acceptable band drawn on it, a tick at the
+target and a marker at the value (the practice of ANSI/ISA-101 high-performance displays: the
+value beside its band, so how far off it is shows at a glance). Its scale depends on the band
+only, so the track stays put as the value moves:
+
+>>> b = bullet_geometry(0.4, 0.3048, 0.4572, 0.381)
+>>> round(b.band_left_pct, 1), round(b.band_width_pct, 1), round(b.value_pct, 1)
+(25.0, 50.0, 56.2)
+>>> bullet_geometry(12.0, None, 21.0, None).value_pct > 0    # one-sided band from zero
+True
+>>> bullet_geometry(None, 1.0, 2.0, None).value_pct is None
+True
 """
 
 from __future__ import annotations
 
 import math
+from typing import NamedTuple
 
 from ops_logic.units import KINDS, display_unit, from_si, to_si
 
-__all__ = ["DISPLAY_KINDS", "display_number", "format_value", "parse_value", "unit_label"]
+__all__ = ["DISPLAY_KINDS", "Bullet", "bullet_geometry", "display_number", "format_value",
+           "parse_value", "unit_label"]
 
 # display kind -> (ops_logic.units kind or None, fixed unit label, digits us, digits si)
 _DISPLAY: dict[str, tuple[str | None, str, int, int]] = {
@@ -86,3 +101,45 @@ def parse_value(text: str, kind: str, units: str) -> float:
     if not math.isfinite(value):
         raise ValueError(f"{text!r} is not a finite number")
     return value
+
+
+class Bullet(NamedTuple):
+    """Positions on the track, in percent of its width (None: not drawn)."""
+
+    band_left_pct: float | None
+    band_width_pct: float | None
+    target_pct: float | None
+    value_pct: float | None
+    off_scale: bool
+
+
+def _scale(lo: float | None, hi: float | None) -> tuple[float, float] | None:
+    if lo is not None and hi is not None:
+        span = hi - lo
+        return lo - 0.5 * span, hi + 0.5 * span
+    if hi is not None:
+        return (0.0, 1.5 * hi) if hi > 0 else (hi - 1.0, hi + 1.0)
+    if lo is not None:
+        return (0.0, 2.0 * lo) if lo > 0 else (lo - 1.0, lo + 1.0)
+    return None
+
+
+def bullet_geometry(value: float | None, lo: float | None, hi: float | None,
+                    target: float | None) -> Bullet | None:
+    """The bullet of a value against a band (any unit, the same for all); None without a
+    band. Two-sided bands span the middle half of the track; a one-sided band runs from zero
+    (a maximum over 2/3 of the track, a minimum over 1/2)."""
+    scale = _scale(lo, hi)
+    if scale is None:
+        return None
+    a, w = scale[0], 0.01 * (scale[1] - scale[0])  # percent of the track: (x - a) / w
+    left = (lo - a) / w if lo is not None else 0.0
+    right = (hi - a) / w if hi is not None else 100.0
+    v = None
+    off = False
+    if value is not None and math.isfinite(value):
+        raw = (value - a) / w
+        off = raw < 0.0 or raw > 100.0
+        v = min(max(raw, 0.0), 100.0)
+    t = (target - a) / w if target is not None else None
+    return Bullet(left, right - left, t, v, off)

@@ -1,31 +1,26 @@
 """What the overview and the wall display show: bullet indicators, texts, classes, sparklines.
 
-A *bullet indicator* is a horizontal track with the acceptable band drawn on it, a tick at the
-target and a marker at the value (ANSI/ISA-101 practice: the value beside its band, so how far
-off it is shows at a glance). Its scale depends on the band only, not on the value, so the
-track stays put between refreshes; a value off the scale sits at the end of the track with
-the ``off-scale`` class. Colour is for abnormal states only: the CSS classes of
-``assets/style.css`` (section "Overview and wall display") give grey for normal, amber for a
-value out of its band or a fishway out of criteria, grey italics for stale data, and the
-alarm colours by priority.
+Each metric comes with its bullet indicator's geometry, worked out when the status was judged
+(:func:`ops_logic.display.bullet_geometry`: the band on a track whose scale depends on the band
+only, a tick at the target, a marker at the value; a value off the scale sits at the end of the
+track, outlined). Colour is for abnormal states only: the CSS classes of ``assets/style.css``
+(section "Overview and wall display") give grey for normal, amber for a value out of its band
+or a fishway out of criteria, grey italics for stale data, and the alarm colours by priority.
 
 The page's components carry pattern ids ``{"type": ..., "key": "<fishway>.<item>"}``;
 :func:`panel_values`, :func:`summary_values` and :func:`wall_values` give, per key, the text
 and CSS class (every text item has both) and the bullet styles (a few properties each) of one
-refresh, so a refresh sends only those small properties.
+refresh, so a refresh sends only those small properties:
 
->>> b = bullet_geometry(0.4, 0.3048, 0.4572, 0.381)
->>> round(b.band_left_pct, 1), round(b.band_width_pct, 1), round(b.value_pct, 1)
-(25.0, 50.0, 56.2)
->>> bullet_geometry(12.0, None, 21.0, None).value_pct > 0    # one-sided band from zero
-True
->>> bullet_geometry(None, 1.0, 2.0, None).value_pct is None
-True
+>>> from db.status.model import Metric
+>>> m = Metric("head_drop", "Worst pool head drop", "length", 0.40, 0.30, 0.366, None,
+...            band_left_pct=25.0, band_width_pct=50.0, value_pct=60.0)
+>>> _styles(m)[2]
+{'display': 'block', 'left': '60.00%', 'outline': 'none'}
 """
 
 from __future__ import annotations
 
-import math
 import threading
 from collections import OrderedDict
 from datetime import datetime
@@ -41,7 +36,7 @@ from dashboard.services.overview import (
     age_text,
 )
 from db.status.model import metric_band_text
-from ops_logic.display import display_number, unit_label
+from ops_logic.display import Bullet, bullet_geometry, display_number, unit_label
 
 __all__ = [
     "SPARK_POINTS",
@@ -62,48 +57,6 @@ SPARK_POINTS = 360
 """Points kept in a sparkline trace: six hours of one-minute rollups."""
 
 
-class Bullet(NamedTuple):
-    """Positions on the track, in percent of its width (None: not drawn)."""
-
-    band_left_pct: float | None
-    band_width_pct: float | None
-    target_pct: float | None
-    value_pct: float | None
-    off_scale: bool
-
-
-def _scale(lo: float | None, hi: float | None) -> tuple[float, float] | None:
-    if lo is not None and hi is not None:
-        span = hi - lo
-        return lo - 0.5 * span, hi + 0.5 * span
-    if hi is not None:
-        return (0.0, 1.5 * hi) if hi > 0 else (hi - 1.0, hi + 1.0)
-    if lo is not None:
-        return (0.0, 2.0 * lo) if lo > 0 else (lo - 1.0, lo + 1.0)
-    return None
-
-
-def bullet_geometry(value: float | None, lo: float | None, hi: float | None,
-                    target: float | None) -> Bullet | None:
-    """The bullet of a value against a band (any unit, the same for all); None without a
-    band. Two-sided bands span the middle half of the track; a one-sided band runs from zero
-    (a maximum over 2/3 of the track, a minimum over 1/2)."""
-    scale = _scale(lo, hi)
-    if scale is None:
-        return None
-    a, w = scale[0], 0.01 * (scale[1] - scale[0])  # percent of the track: (x - a) / w
-    left = (lo - a) / w if lo is not None else 0.0
-    right = (hi - a) / w if hi is not None else 100.0
-    v = None
-    off = False
-    if value is not None and math.isfinite(value):
-        raw = (value - a) / w
-        off = raw < 0.0 or raw > 100.0
-        v = min(max(raw, 0.0), 100.0)
-    t = (target - a) / w if target is not None else None
-    return Bullet(left, right - left, t, v, off)
-
-
 def state_class(status: FishwayStatus) -> str:
     """CSS class of a fishway's state badge."""
     return {"in_criteria": "ov-state state-ok", "out_of_criteria": "ov-state state-bad",
@@ -119,18 +72,19 @@ def _row_class(m: Metric) -> str:
 _HIDDEN = {"display": "none"}
 
 
-def _styles(b: Bullet | None) -> tuple[dict, dict, dict]:
-    """The styles of a bullet's band, target tick and marker: small dicts of the few
-    properties a bullet sets (the rest is the CSS classes'), hidden when not drawn."""
-    if b is None:
+def _styles(m: Metric) -> tuple[dict, dict, dict]:
+    """The styles of a metric's bullet band, target tick and marker (its geometry was worked
+    out when the status was judged: :func:`ops_logic.display.bullet_geometry`): small dicts of
+    the few properties a bullet sets (the rest is the CSS classes'), hidden when not drawn."""
+    if m.band_left_pct is None:
         return _HIDDEN, _HIDDEN, _HIDDEN
-    band = {"display": "block", "left": f"{b.band_left_pct:.2f}%",
-            "width": f"{b.band_width_pct:.2f}%"}
-    target = _HIDDEN if b.target_pct is None else {"display": "block",
-                                                    "left": f"{b.target_pct:.2f}%"}
-    marker = _HIDDEN if b.value_pct is None else {
-        "display": "block", "left": f"{b.value_pct:.2f}%",
-        "outline": "3px solid var(--abnormal)" if b.off_scale else "none"}
+    band = {"display": "block", "left": f"{m.band_left_pct:.2f}%",
+            "width": f"{m.band_width_pct:.2f}%"}
+    target = _HIDDEN if m.target_pct is None else {"display": "block",
+                                                    "left": f"{m.target_pct:.2f}%"}
+    marker = _HIDDEN if m.value_pct is None else {
+        "display": "block", "left": f"{m.value_pct:.2f}%",
+        "outline": "3px solid var(--abnormal)" if m.off_scale else "none"}
     return band, target, marker
 
 
@@ -194,8 +148,7 @@ def panel_values(status: FishwayStatus) -> tuple[dict, dict, dict]:
         classes[band] = "ov-bandtext"
         classes[note_key] = "ov-note"
         classes[row] = _row_class(m)
-        styles[band_style], styles[target], styles[marker] = _styles(
-            bullet_geometry(m.value, m.lo, m.hi, m.target))
+        styles[band_style], styles[target], styles[marker] = _styles(m)
     _alarm_items(status.alarms, fid, texts, classes)
     adj = status.adjustment
     texts[f"{fid}.adjust"] = adj.text

@@ -59,7 +59,7 @@ from db.status.model import (
     age_text,
     metric_band_text,
 )
-from ops_logic.display import format_value
+from ops_logic.display import bullet_geometry, format_value
 from ops_logic.ladder import Ladder, SettingSpec, ladder_forebay
 from ops_logic.overrides import MODE_LABELS
 from ops_logic.profile import Criterion
@@ -415,8 +415,7 @@ def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any
     rec = latest_recommendation(engine, db_id) if db_id is not None else None
     adjust = _adjustment(ladder, f, rec, positions, missing, now,
                          max(3 * site.ingest.recommend_seconds, 300.0), units)
-    metrics = [m._replace(text=format_value(m.value, m.kind, units),
-                          band_text=metric_band_text(m, units)) for m in metrics]
+    metrics = [_displayed(m, units) for m in metrics]
     left = [r.left_s for r in (fb, tw, read["water_temp"], read["do"]) if r.usable]
     fresh_until = inp.now_ms + int(1000 * min(left)) if left and not stale else None
     return FishwayStatus(
@@ -425,6 +424,15 @@ def _fishway(site: Site, eff: EffectiveSite, fid: str, inp: _Inputs, engine: Any
         data_ms=inp.now_ms - int(round(1000 * age)) if age is not None else None,
         fresh_until_ms=fresh_until,
         problems=tuple(p for p in eff.problems if p.startswith(f"{fid}:")))
+
+
+def _displayed(m: Metric, units: str) -> Metric:
+    """The metric with its texts in the site's units and its bullet indicator's geometry."""
+    b = bullet_geometry(m.value, m.lo, m.hi, m.target)
+    m = m._replace(text=format_value(m.value, m.kind, units), band_text=metric_band_text(m, units))
+    return m if b is None else m._replace(
+        band_left_pct=b.band_left_pct, band_width_pct=b.band_width_pct, target_pct=b.target_pct,
+        value_pct=b.value_pct, off_scale=b.off_scale)
 
 
 def compute_status(site: Site, engine: Any, now: datetime) -> tuple[FishwayStatus, ...]:

@@ -122,6 +122,13 @@ class Metric(NamedTuple):
     """The value as displayed (site units), set when the status is computed."""
     band_text: str = ""
     """The band as displayed (:func:`metric_band_text`), set when the status is computed."""
+    band_left_pct: float | None = None
+    """Bullet indicator (:func:`ops_logic.display.bullet_geometry`): where the band starts on
+    the track [% of its width]; None: no band, nothing drawn."""
+    band_width_pct: float | None = None
+    target_pct: float | None = None
+    value_pct: float | None = None
+    off_scale: bool = False
 
     @property
     def in_band(self) -> bool:

@@ -53,7 +53,8 @@ _S_COLS = ("computed_ms", "state", "reason", "worst", "mode", "data_ms", "fresh_
            "stale", "adjust_status", "adjust_text", "adjust_changes", "adjust_stale", "gauges",
            "gauges_ok", "problems")
 _M_COLS = ("key", "label", "kind", "value", "lo", "hi", "target", "status", "note", "source",
-           "text", "band_text")
+           "text", "band_text", "band_left_pct", "band_width_pct", "target_pct", "value_pct",
+           "off_scale")
 _READ_SQL = (
     "SELECT st.name, f.name, f.id, " + ", ".join(f"s.{c}" for c in _S_COLS) + ", "
     + ", ".join(f"m.{c}" for c in _M_COLS) + " FROM fishway_status s "

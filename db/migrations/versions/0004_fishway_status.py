@@ -10,8 +10,9 @@ What it adds (:mod:`db.status` uses it):
   the worst criterion, the mode, the time of the readings it rests on and when they go stale,
   whether an adjustment is due (with the changes), the gauges-against-model note;
 - ``fishway_status_metrics``: the displayed quantities of that status, one row per
-  (fishway, key): SI value, band (lo, hi, target), display status, note, source and the value
-  and band as displayed in the site's units.
+  (fishway, key): SI value, band (lo, hi, target), display status, note, source, the value
+  and band as displayed in the site's units, and the geometry of its bullet indicator
+  (percent of the track).
 
 The ingest replaces a fishway's rows in one transaction per cycle; the dashboard reads them
 (the overview, the wall display) instead of solving the profiles for every viewer.
@@ -78,6 +79,11 @@ def upgrade() -> None:
         sa.Column("source", sa.String(100), nullable=False, server_default=""),
         sa.Column("text", sa.String(60), nullable=False, server_default=""),
         sa.Column("band_text", sa.String(200), nullable=False, server_default=""),
+        sa.Column("band_left_pct", sa.Double),
+        sa.Column("band_width_pct", sa.Double),
+        sa.Column("target_pct", sa.Double),
+        sa.Column("value_pct", sa.Double),
+        sa.Column("off_scale", sa.Boolean, nullable=False, server_default=sa.false()),
         sa.CheckConstraint(f"status IN ({METRIC_STATUSES})",
                            name=op.f("ck_fishway_status_metrics_status_known")),
     )
