@@ -39,9 +39,8 @@ from db.feed_health import update_feed_health
 from db.migrate import upgrade
 from db.readings import store_batch
 from ops_logic.alarms.engine import AlarmEngine
-from ops_logic.ladder import Ladder
 from ops_logic.site import Site, demo_site_path, parse_site
-from ops_logic.tags import site_tags
+from simulator.steady import steady_readings
 
 T0 = datetime(2026, 7, 1, 6, 0, tzinfo=UTC)
 POLL_S = 10.0
@@ -59,25 +58,6 @@ def bench_site() -> Site:
                         for i in range(COPIES)]
     data["site"]["name"] = "Bench site"
     return parse_site(data, "<alarm bench site>")
-
-
-def quiet_values(site: Site) -> dict[str, float]:
-    """Each copy at the recommended settings for mid-range levels (healthy readings)."""
-    out: dict[str, float] = {}
-    tags = site_tags(site)
-    for f in site.fishways:
-        ladder = Ladder(f)
-        fb, tw = 0.5 * sum(f.forebay_range), 0.5 * sum(f.tailwater_range)
-        rec = ladder.recommend(fb, tw, temperature_c=12.0)
-        levels = {q.id: q.water_level_m for q in rec.profile.pools}
-        aux = {a.id: a.flow_m3s for a in rec.profile.aux}
-        fixed = {"forebay": fb, "tailwater": tw, "water_temp": 12.0, "do": 9.5,
-                 "trash_rack_dp": 0.0, "picket_dp": 0.0, "pump_trip": 0.0}
-        for t in (t for t in tags if t.fishway_id == f.id):
-            out[t.name] = (levels[t.pool_id] if t.role in ("pool", "pool_b") else
-                           rec.settings[t.setting] if t.role == "setting" else
-                           aux[t.actuator] if t.role == "aux_flow" else fixed[t.role])
-    return out
 
 
 class Timer:
@@ -100,7 +80,7 @@ def run(url: str, label: str) -> None:
     upgrade(engine)
     evaluator = AlarmEvaluator(engine, site)
     ids = evaluator.store.ids.tags
-    names = list(quiet_values(site).items())
+    names = list(steady_readings(site).items())
     rng = np.random.default_rng(7)
     read = evaluator.reader.read = Timer(evaluator.reader.read)
     judge = Timer(AlarmEngine.evaluate)

@@ -38,30 +38,17 @@ T0 = NOW - timedelta(minutes=20)
 
 # -- the scenario (shared with the browser test) ---------------------------------------------
 def quiet_inputs(site):
-    """Healthy readings of every tag and in-criteria fishway inputs (each fishway at its
-    recommended settings for the middle of its forebay and tailwater ranges, 12 °C water,
-    9.5 mg/L oxygen, clean racks, no trips); invented values."""
+    """Healthy readings of every tag and in-criteria fishway inputs: the simulator's still
+    plant (:func:`simulator.steady.steady_state`: each fishway at its recommended settings for
+    the middle of its ranges, 12 °C water, 9.5 mg/L oxygen, clean racks, no trips)."""
     from ops_logic.alarms.inputs import FishwayInputs
-    from ops_logic.ladder import Ladder
     from ops_logic.tags import site_tags
+    from simulator.steady import steady_state
 
-    values, fishways = {}, {}
-    tags = site_tags(site)
-    for f in site.fishways:
-        ladder = Ladder(f)
-        fb, tw = 0.5 * sum(f.forebay_range), 0.5 * sum(f.tailwater_range)
-        rec = ladder.recommend(fb, tw, temperature_c=12.0)
-        p = ladder.solve(fb, tw, rec.settings, temperature_c=12.0)
-        levels = {q.id: q.water_level_m for q in p.pools}
-        aux = {a.id: a.flow_m3s for a in p.aux}
-        fixed = {"forebay": fb, "tailwater": tw, "water_temp": 12.0, "do": 9.5,
-                 "trash_rack_dp": 0.0, "picket_dp": 0.0, "pump_trip": 0.0}
-        for t in (t for t in tags if t.fishway_id == f.id):
-            values[t.name] = (levels[t.pool_id] if t.role in ("pool", "pool_b") else
-                              rec.settings[t.setting] if t.role == "setting" else
-                              aux[t.actuator] if t.role == "aux_flow" else fixed[t.role])
-        fishways[f.id] = FishwayInputs(p, rec, dict(rec.settings), 12.0, None)
-    return values, fishways, tags
+    values, points = steady_state(site)
+    fishways = {fid: FishwayInputs(p, rec, dict(rec.settings), 12.0, None)
+                for fid, (p, rec) in points.items()}
+    return values, fishways, site_tags(site)
 
 
 def evaluate_stored(store, quiet, now: datetime, stale: tuple[str, ...] = (),

@@ -8,7 +8,7 @@ import pytest
 
 MODULES = ["simulator.noise", "simulator.scenario", "simulator.environment",
            "simulator.actuators", "simulator.faults", "simulator.plant", "simulator.history",
-           "simulator.feed", "simulator.opcua_server", "simulator.link"]
+           "simulator.feed", "simulator.opcua_server", "simulator.link", "simulator.steady"]
 
 
 @pytest.mark.parametrize("name", MODULES)

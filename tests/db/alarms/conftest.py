@@ -19,37 +19,10 @@ from db.alarm.service import AlarmService
 from db.catalog import add_user
 from db.feed_health import update_feed_health
 from db.readings import store_batch
-from ops_logic.ladder import Ladder
 from ops_logic.site import Site, load_site
-from ops_logic.tags import site_tags
+from simulator.steady import steady_readings
 
 T0 = datetime(2026, 7, 1, 6, 0, tzinfo=UTC)
-
-
-def quiet_values(site: Site) -> dict[str, float]:
-    """A healthy reading of every tag (SI, the tag's unit); see the module docstring."""
-    out: dict[str, float] = {}
-    for f in site.fishways:
-        ladder = Ladder(f)
-        fb, tw = 0.5 * sum(f.forebay_range), 0.5 * sum(f.tailwater_range)
-        rec = ladder.recommend(fb, tw, temperature_c=12.0)
-        p = ladder.solve(fb, tw, rec.settings, temperature_c=12.0)
-        levels = {q.id: q.water_level_m for q in p.pools}
-        aux = {a.id: a.flow_m3s for a in p.aux}
-        fixed = {"forebay": fb, "tailwater": tw, "water_temp": 12.0, "do": 9.5,
-                 "trash_rack_dp": 0.0, "picket_dp": 0.0, "pump_trip": 0.0}
-        for t in site_tags(site):
-            if t.fishway_id != f.id:
-                continue
-            if t.role in ("pool", "pool_b"):
-                out[t.name] = levels[t.pool_id]
-            elif t.role == "setting":
-                out[t.name] = rec.settings[t.setting]
-            elif t.role == "aux_flow":
-                out[t.name] = aux[t.actuator]
-            else:
-                out[t.name] = fixed[t.role]
-    return out
 
 
 class Feeder:
@@ -81,7 +54,7 @@ def demo_site() -> Site:
 
 @pytest.fixture(scope="session")
 def quiet(demo_site) -> dict[str, float]:
-    return quiet_values(demo_site)
+    return steady_readings(demo_site)
 
 
 @pytest.fixture

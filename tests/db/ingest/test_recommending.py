@@ -26,37 +26,11 @@ from db.feeds.base import Feed, FeedReading
 from db.feeds.registry import build_feeds
 from db.ingest.service import IngestService
 from db.site_sync import sync_site
-from ops_logic.ladder import Ladder
-from ops_logic.site import Site
-from ops_logic.tags import site_tags
+from simulator.steady import steady_readings
 
 from .conftest import START, west_site
 
 OVERRIDDEN_MAX_M = 0.33  # between the band's aim (1.0 ft) and the site file's max (1.2 ft)
-
-
-def still_values(site: Site) -> dict[str, float]:
-    """A reading of every tag of the still plant (SI, the tag's unit)."""
-    f = site.fishways[0]
-    ladder = Ladder(f)
-    fb, tw = 0.5 * sum(f.forebay_range), 0.5 * sum(f.tailwater_range)
-    rec = ladder.recommend(fb, tw, temperature_c=12.0)
-    p = ladder.solve(fb, tw, rec.settings, temperature_c=12.0)
-    levels = {q.id: q.water_level_m for q in p.pools}
-    aux = {a.id: a.flow_m3s for a in p.aux}
-    fixed = {"forebay": fb, "tailwater": tw, "water_temp": 12.0, "do": 9.5,
-             "trash_rack_dp": 0.0, "picket_dp": 0.0, "pump_trip": 0.0}
-    out = {}
-    for t in site_tags(site):
-        if t.role in ("pool", "pool_b"):
-            out[t.name] = levels[t.pool_id]
-        elif t.role == "setting":
-            out[t.name] = rec.settings[t.setting]
-        elif t.role == "aux_flow":
-            out[t.name] = aux[t.actuator]
-        else:
-            out[t.name] = fixed[t.role]
-    return out
 
 
 class StillFeed(Feed):
@@ -80,7 +54,7 @@ class StillFeed(Feed):
 def plant(db_engine):
     site = west_site()
     tag_ids = sync_site(db_engine, site)
-    feed = StillFeed(still_values(site))
+    feed = StillFeed(steady_readings(site))
     service = IngestService(site, db_engine, build_feeds(site, simulated_factory=lambda c, s:
                                                          feed), tag_ids=tag_ids)
     return service, feed

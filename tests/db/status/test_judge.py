@@ -21,32 +21,10 @@ from db.site_sync import sync_site
 from db.status import compute_status
 from db.status.cache import clear_caches
 from ops_logic.display import format_value
-from ops_logic.ladder import Ladder
-from ops_logic.site import Site, load_site
-from ops_logic.tags import site_tags
+from ops_logic.site import load_site
+from simulator.steady import steady_readings
 
 T0 = datetime(2026, 7, 1, 6, 0, tzinfo=UTC)
-
-
-def still_values(site: Site) -> dict[str, float]:
-    """A reading of every tag: each fishway at its recommendation for mid-range levels."""
-    out: dict[str, float] = {}
-    for f in site.fishways:
-        ladder = Ladder(f)
-        fb, tw = 0.5 * sum(f.forebay_range), 0.5 * sum(f.tailwater_range)
-        rec = ladder.recommend(fb, tw, temperature_c=12.0)
-        p = ladder.solve(fb, tw, rec.settings, temperature_c=12.0)
-        levels = {q.id: q.water_level_m for q in p.pools}
-        aux = {a.id: a.flow_m3s for a in p.aux}
-        fixed = {"forebay": fb, "tailwater": tw, "water_temp": 12.0, "do": 9.5,
-                 "trash_rack_dp": 0.0, "picket_dp": 0.0, "pump_trip": 0.0}
-        for t in site_tags(site):
-            if t.fishway_id != f.id:
-                continue
-            out[t.name] = (levels[t.pool_id] if t.role in ("pool", "pool_b") else
-                           rec.settings[t.setting] if t.role == "setting" else
-                           aux[t.actuator] if t.role == "aux_flow" else fixed[t.role])
-    return out
 
 
 @pytest.fixture
@@ -57,7 +35,7 @@ def judged(db_engine):
     ids = sync_site(db_engine, site)
     clear_caches()
     clear_cache()
-    base = still_values(site)
+    base = steady_readings(site)
 
     def run(flags: dict[str, int] | None = None, at: datetime = T0, **values: float):
         rows = {**base, **values}
