@@ -7,7 +7,7 @@ position tags, or the settings last logged in ``actuator_settings`` when a posit
 usable reading) go to ``Ladder.solve`` of the fishway *in force* (site file plus supervisors'
 overrides, :func:`db.in_force.effective_site`). A solve takes about a millisecond on the demo's
 40-pool ladder (less warm-started from the ladder's previous profile), and results are cached
-by their rounded inputs.
+by their rounded inputs (:mod:`db.status.cache`).
 
 The forebay the ladder sees is the water level upstream of its exit control: the forebay
 gauge less the trash-rack head loss (the ``trash_rack_dp`` tag measures forebay to exit),
