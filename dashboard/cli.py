@@ -132,12 +132,10 @@ def _start_dashboard(site: Any, engine: Any, host: str, port: int) -> Callable[[
     the demo accounts with fresh passwords, print the address and the credentials; return the
     function that stops the server."""
     import secrets
-    import threading
-
-    from waitress.server import create_server
 
     from dashboard.app import create_app
     from dashboard.auth import hash_password
+    from dashboard.commands import serve_in_background
     from db.catalog import add_user, get_user
 
     lines = []
@@ -149,8 +147,7 @@ def _start_dashboard(site: Any, engine: Any, host: str, port: int) -> Callable[[
             add_user(engine, name, role, hash_password(password), now=datetime.now(UTC))
             lines.append(f"  {role:<10}  user {name}  password {password}")
     app = create_app(site, engine, secret_key=secrets.token_hex(32))
-    server = create_server(app.server, host=host, port=port, threads=8, ident="fishway-ops")
-    threading.Thread(target=server.run, name="dashboard", daemon=True).start()
+    server = serve_in_background(app, host, port, threads=8)
     print(f"fishway demo: dashboard at http://{host}:{port}/  (wall display: "
           f"http://{host}:{port}/wall, no sign-in)", flush=True)
     for line in lines:
@@ -206,12 +203,10 @@ def _demo(args: argparse.Namespace) -> int:
         start = now - timedelta(days=args.days)
         plant = Plant(site, start=start, seed=args.seed, scenario=demo_scenario(start, site))
         feeds = build_feeds(site, simulated_factory=simulated_factory(start, plant=plant))
-        from db.alarm.evaluator import alarm_evaluator
-        from db.status import status_evaluator
+        from db.ingest.cli import site_evaluators
 
         service = IngestService(site, engine, feeds, tag_ids=tag_ids,
-                                evaluators=(alarm_evaluator(engine, site),
-                                            status_evaluator(site, engine)))
+                                evaluators=site_evaluators(engine, site))
         print(f"fishway demo: {site.site.name} (an invented site), database "
               f"{engine.url.render_as_string()}", file=sys.stderr, flush=True)
         by_period: dict[float, list] = {}

@@ -13,7 +13,7 @@ import getpass
 import sys
 from typing import Any
 
-__all__ = ["register", "serve"]
+__all__ = ["register", "serve", "serve_in_background"]
 
 
 def serve(app: Any, host: str, port: int, threads: int) -> None:
@@ -21,6 +21,21 @@ def serve(app: Any, host: str, port: int, threads: int) -> None:
     from waitress import serve as waitress_serve
 
     waitress_serve(app.server, host=host, port=port, threads=threads, ident="fishway-ops")
+
+
+def serve_in_background(app: Any, host: str = "127.0.0.1", port: int = 0,
+                        threads: int = 8) -> Any:
+    """Serve a Dash app's Flask server with waitress in a daemon thread (the demo, tests,
+    benchmarks). The socket listens once this returns (``port=0``: a free port; the server's
+    ``effective_port`` says which); ``close()`` on the returned server stops it."""
+    import threading
+
+    from waitress.server import create_server
+
+    server = create_server(app.server, host=host, port=port, threads=threads,
+                           ident="fishway-ops")
+    threading.Thread(target=server.run, name="dashboard", daemon=True).start()
+    return server
 
 
 def _engine(args: argparse.Namespace) -> Any:

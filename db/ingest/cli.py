@@ -48,7 +48,7 @@ from ops_logic.site import Feed as FeedConfig
 from ops_logic.site import Site, demo_site_path, load_site
 
 __all__ = ["MAX_SPEED", "STATUS_EVERY_S", "register", "run_until_stopped",
-           "simulated_factory", "status_line", "stop_on_signals"]
+           "simulated_factory", "site_evaluators", "status_line", "stop_on_signals"]
 
 MAX_SPEED = 100_000.0
 STATUS_EVERY_S = 60.0
@@ -188,12 +188,8 @@ def _ingest(args: argparse.Namespace) -> int:
             lambda: datetime.now(UTC))
         feeds = build_feeds(site, simulated_factory=simulated_factory(start),
                             base_dir=site_path.parent)
-        from db.alarm.evaluator import alarm_evaluator  # heavy: imported only here
-        from db.status import status_evaluator
-
         service = IngestService(site, engine, feeds, clock=clock, tag_ids=tag_ids,
-                                evaluators=(alarm_evaluator(engine, site),
-                                            status_evaluator(site, engine)))
+                                evaluators=site_evaluators(engine, site))
         if args.once:
             return _once(service, clock())
         print(f"fishway ingest: {site.site.name} into {engine.url.render_as_string()} "
@@ -206,6 +202,15 @@ def _ingest(args: argparse.Namespace) -> int:
         if service is not None and args.once:
             service.close()
         engine.dispose()
+
+
+def site_evaluators(engine: Any, site: Site) -> tuple:
+    """The hooks a running ingest calls after each cycle, in order: the alarm evaluation, then
+    the fishway status (so the status sees the same readings as the alarms)."""
+    from db.alarm.evaluator import alarm_evaluator  # heavy: imported only here
+    from db.status import status_evaluator
+
+    return alarm_evaluator(engine, site), status_evaluator(site, engine)
 
 
 def register(subparsers: Any, common: argparse.ArgumentParser) -> None:

@@ -397,16 +397,15 @@ class _QueueDepth(logging.Handler):
 
 
 def load_run(app, layout_ids: dict[str, list[dict]], seconds: float, app_ctx_engine) -> None:
-    from waitress.server import create_server
+    from dashboard.commands import serve_in_background
 
     queue = _QueueDepth()
     log = logging.getLogger("waitress.queue")
     log.addHandler(queue)
     log.propagate = False
 
-    server = create_server(app.server, host="127.0.0.1", port=0, threads=8)
+    server = serve_in_background(app, threads=8)  # as fishway dashboard
     port = server.effective_port
-    threading.Thread(target=server.run, daemon=True).start()
     base = f"http://127.0.0.1:{port}"
     results: list[tuple[bool, float]] = []
     lock = threading.Lock()

@@ -11,9 +11,6 @@ from __future__ import annotations
 
 import os
 import shutil
-import socket
-import threading
-import time
 from datetime import UTC, datetime, timedelta
 from pathlib import Path
 
@@ -29,12 +26,6 @@ SEED_END = datetime(2026, 7, 15, 12, 0, tzinfo=UTC)
 SEED_HOURS = 6
 NOW = SEED_END + timedelta(seconds=20)
 """The clock the page tests read the seeded data at."""
-
-
-def _free_port() -> int:
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        return s.getsockname()[1]
 
 
 @pytest.fixture(scope="session")
@@ -77,22 +68,12 @@ def seeded_engine(tmp_path_factory, demo_site):
 @pytest.fixture(scope="session")
 def live_server(seeded_engine, demo_site):
     """Base URL of the dashboard served by waitress in a thread."""
-    from waitress.server import create_server
-
     from dashboard.app import create_app
+    from dashboard.commands import serve_in_background
 
     app = create_app(demo_site, seeded_engine, secret_key="test-secret")
-    port = _free_port()
-    server = create_server(app.server, host="127.0.0.1", port=port, threads=4)
-    thread = threading.Thread(target=server.run, daemon=True)
-    thread.start()
-    deadline = time.monotonic() + 10
-    while time.monotonic() < deadline:
-        try:
-            with socket.create_connection(("127.0.0.1", port), timeout=0.5):
-                break
-        except OSError:
-            time.sleep(0.05)
+    server = serve_in_background(app, threads=4)
+    port = server.effective_port
     yield f"http://127.0.0.1:{port}"
     server.close()
 

@@ -10,11 +10,8 @@ other pages' tests.
 
 from __future__ import annotations
 
-import socket
 import sqlite3
 import sys
-import threading
-import time
 from datetime import UTC, datetime, timedelta
 
 import pytest
@@ -29,10 +26,9 @@ pytestmark = pytest.mark.browser
 def alarm_server(tmp_path_factory, demo_site):
     """``(base URL, database path, keys, engine)`` of a dashboard on the scenario database,
     refreshing the active list every 1.5 s (so a test sees a live update)."""
-    from waitress.server import create_server
-
     from dashboard import context
     from dashboard.app import create_app
+    from dashboard.commands import serve_in_background
 
     path = tmp_path_factory.mktemp("alarms-browser") / "alarms.sqlite"
     engine = make_database(path, demo_site)
@@ -42,18 +38,8 @@ def alarm_server(tmp_path_factory, demo_site):
     app.server.test_client().get("/login")  # this app takes the callbacks now
     page_module = sys.modules["pages.alarms"]
     refresh_ms, page_module.REFRESH_MS = page_module.REFRESH_MS, 1500
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        port = s.getsockname()[1]
-    server = create_server(app.server, host="127.0.0.1", port=port, threads=4)
-    threading.Thread(target=server.run, daemon=True).start()
-    deadline = time.monotonic() + 10
-    while time.monotonic() < deadline:
-        try:
-            socket.create_connection(("127.0.0.1", port), timeout=0.5).close()
-            break
-        except OSError:
-            time.sleep(0.05)
+    server = serve_in_background(app, threads=4)
+    port = server.effective_port
     yield f"http://127.0.0.1:{port}", path, keys, engine
     page_module.REFRESH_MS = refresh_ms
     server.close()

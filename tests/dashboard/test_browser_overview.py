@@ -10,18 +10,12 @@ private copy of the seeded database (so writes stay here) and the clock at SEED_
 from __future__ import annotations
 
 import json
-import sqlite3
-from datetime import UTC, datetime, timedelta
+from datetime import UTC, datetime
 
 import pytest
 
-from dashboard import context
-from dashboard.context import AppContext
-from dashboard.services import overview as overview_service
 from db.catalog import tags_frame
 from db.dashboard_queries import setting_changes_frame
-from db.engine import make_engine
-from ops_logic.ladder import Ladder
 
 pytestmark = pytest.mark.browser
 
@@ -31,21 +25,10 @@ STATES = ("IN CRITERIA", "OUT OF CRITERIA", "OUT OF SERVICE", "MAINTENANCE",
 
 
 @pytest.fixture
-def fresh(monkeypatch, seeded_engine, demo_site, live_server, tmp_path):
-    """The live server's context on a copy of the seeded database, its clock at SEED_END+20 s."""
-    path = tmp_path / "browser.sqlite"
-    src, dst = sqlite3.connect(seeded_engine.url.database), sqlite3.connect(path)
-    with dst:
-        src.backup(dst)
-    src.close()
-    dst.close()
-    engine = make_engine(sqlite_path=path)
-    ctx = AppContext(demo_site, engine,
-                     {f.id: Ladder.from_site(demo_site, f.id) for f in demo_site.fishways})
-    monkeypatch.setattr(context, "_current", ctx)
-    monkeypatch.setattr(overview_service, "now", lambda: SEED_END + timedelta(seconds=20))
-    yield ctx
-    engine.dispose()
+def fresh(live_server, app_ctx):
+    """The live server's context on a private copy of the seeded database, its clock at
+    SEED_END + 20 s (the dashboard fixtures' ``app_ctx``, made after the server)."""
+    return app_ctx
 
 
 @pytest.fixture

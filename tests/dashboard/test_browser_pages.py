@@ -9,9 +9,6 @@ must receive at most about two points per pixel column and keep the year's extre
 from __future__ import annotations
 
 import json
-import socket
-import threading
-import time
 from datetime import UTC, datetime, timedelta
 
 import numpy as np
@@ -172,11 +169,10 @@ YEAR_PEAK = (YEAR_END - timedelta(days=150, minutes=35), 78.6)
 def year_server(tmp_path, demo_site):
     """The dashboard on a database holding a year of five-minute forebay readings (one peak),
     served by waitress; the previous dashboard context is put back afterwards."""
-    from waitress.server import create_server
-
     from dashboard import context
     from dashboard.app import create_app
     from dashboard.auth import create_user
+    from dashboard.commands import serve_in_background
     from db.engine import make_engine
     from db.migrate import upgrade
     from db.readings import store_batch
@@ -194,19 +190,8 @@ def year_server(tmp_path, demo_site):
     create_user(engine, "op9", "operator", "operator-pass-9")
     old = context._current
     app = create_app(demo_site, engine, secret_key="year-secret")
-    with socket.socket() as s:
-        s.bind(("127.0.0.1", 0))
-        port = s.getsockname()[1]
-    server = create_server(app.server, host="127.0.0.1", port=port, threads=2)
-    threading.Thread(target=server.run, daemon=True).start()
-    deadline = time.monotonic() + 10
-    while time.monotonic() < deadline:
-        try:
-            with socket.create_connection(("127.0.0.1", port), timeout=0.5):
-                break
-        except OSError:
-            time.sleep(0.05)
-    yield f"http://127.0.0.1:{port}"
+    server = serve_in_background(app, threads=2)
+    yield f"http://127.0.0.1:{server.effective_port}"
     server.close()
     if old is not None:
         context.install(old)
