@@ -33,7 +33,7 @@ from ops_logic.ladder import Ladder
 from ops_logic.overrides import MODES, apply_overrides
 from ops_logic.site import Fishway, Site
 
-__all__ = ["EffectiveSite", "effective_site"]
+__all__ = ["EffectiveSite", "clear_cache", "effective_site"]
 
 
 @dataclass(frozen=True)

@@ -35,15 +35,11 @@ from dashboard.services.overview import (
     Snapshot,
     age_text,
 )
-from db.status.model import metric_band_text
-from ops_logic.display import Bullet, bullet_geometry, display_number, unit_label
+from ops_logic.display import display_number, unit_label
 
 __all__ = [
     "SPARK_POINTS",
-    "Bullet",
-    "bullet_geometry",
     "clear_outputs",
-    "metric_band_text",
     "panel_values",
     "refresh_outputs",
     "spark_extension",

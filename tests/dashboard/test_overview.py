@@ -21,7 +21,7 @@ from hypothesis import assume, given
 from hypothesis import strategies as st
 
 from dashboard import auth
-from dashboard.figures.overview import bullet_geometry, panel_values, wall_values
+from dashboard.figures.overview import panel_values, wall_values
 from dashboard.services import overview as service
 from db.alarms import record_alarm_event
 from db.catalog import tag_id
@@ -33,6 +33,7 @@ from db.readings import readings_frame, store_batch
 from db.site_sync import sync_site
 from db.status import compute_status, read_status, update_status
 from db.status.judge import _rows
+from ops_logic.display import bullet_geometry
 from ops_logic.ladder import Ladder
 from ops_logic.profile import Criterion
 
